@@ -1,0 +1,14 @@
+"""The ``qcflag`` command line: a thin typer app over the library.
+
+Each command lives in its own module and registers itself on :data:`app`; the library is
+imported lazily inside the commands so that ``qcflag --help`` stays fast.
+"""
+
+from __future__ import annotations
+
+from qcflag.cli._app import app, main
+
+# Importing a command module registers its command(s) on ``app``.
+from qcflag.cli import _basic  # noqa: F401  isort: skip
+
+__all__ = ["app", "main"]
