@@ -84,17 +84,22 @@ thermoclines, coarse bathymetry), so they enter the fusion as evidence instead.
 DEFAULT_COST: NDArray[np.float64] = np.array(
     [
         [0.0, 1.0, 2.0, 3.0],
-        [1.0, 0.0, 1.0, 2.0],
-        [4.0, 3.0, 0.0, 1.0],
-        [5.0, 4.0, 1.0, 0.0],
+        [3.0, 0.0, 1.0, 2.0],
+        [6.0, 3.0, 0.0, 1.0],
+        [7.0, 4.0, 1.0, 0.0],
     ]
 )
-"""Default ordinal cost ``C[true - 1, chosen - 1]``: ``|true - chosen|`` plus 2 for calling a
-probably-bad or bad value good or probably good.
+"""Default ordinal cost ``C[true - 1, chosen - 1]`` (this project's choice, not a published
+value).
 
-The extra weight is this project's choice (not a published value): a bad value passed as
-good reaches users unseen, whereas a good value flagged probably bad costs a reviewer one
-look. With this matrix the good/bad boundary is crossed where ``P(grade >= 3) > 0.25``.
+It is additive over the three grade boundaries: crossing boundary ``k`` (between grades
+``k`` and ``k + 1``) upwards when the truth is below costs ``a_k = 1``; failing to cross it
+when the truth is above costs ``b = (3, 3, 1)``. A missed probably-bad or bad value reaches
+users unseen, whereas an over-cautious flag costs a reviewer one look, hence ``b_2 = 3``.
+Because the costs are additive, the Bayes decision splits into one test per boundary,
+``P(grade > k) > a_k / (a_k + b_k)``: grade >= 2 where ``P(grade >= 2) > 0.25``, grade >= 3
+where ``P(grade >= 3) > 0.25``, grade 4 where ``P(grade = 4) > 0.5``. The thresholds do not
+decrease with ``k``, so the three tests never contradict each other.
 """
 
 # verdict grade (0 n/a, 1 pass, 2, 3, 4) -> row of a likelihood table
