@@ -41,9 +41,21 @@ k, latitude row j and longitude column i::
 * ``heave``: 15 m, a typical vertical displacement of isopycnals by internal waves and
   eddies (judgement/common knowledge, an order of magnitude rather than a measured value).
 
-The estimate is the same in every season: the annual climatology does not resolve the
-seasonal cycle, which is why the climatology check gives "probably bad" only (QARTOD) and its
-threshold is generous.
+Temperature gets one more term for the seasonal cycle, which the annual mean does not
+resolve::
+
+    sd_T = sqrt(floor**2 + spread**2 + (heave * gradient)**2 + (season * exp(-z / H))**2)
+
+* ``season``: the standard deviation over the 12 months of the COADS monthly sea-surface
+  temperature climatology (``coads_climatology.cdf``, same Debian package, 2-degree grid) in
+  the 2-degree cell holding the 1-degree cell; where COADS has no value, the largest value
+  among its eight neighbours, else 0.
+* ``H``: 100 m, an e-folding depth for the seasonal signal, of the order of the seasonal
+  mixed-layer depth (judgement).
+
+Salinity has no seasonal term (no monthly salinity source in the package). All of this is an
+*estimate*, the same in every season, which is why the climatology check gives "probably
+bad" only (QARTOD) and its threshold is generous.
 """
 
 from __future__ import annotations
@@ -54,6 +66,7 @@ import hashlib
 import shlex
 import subprocess
 import sys
+import warnings
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -71,8 +84,10 @@ __all__ = [
     "DEFAULT_SOURCE",
     "FLOORS",
     "HEAVE_M",
+    "SEASONAL_EFOLD_M",
     "build",
     "main",
+    "seasonal_sst_sd",
     "variability_estimate",
 ]
 
@@ -83,6 +98,7 @@ DATA_DIR = Path(__file__).resolve().parent / "data"
 CLIMATOLOGY_FILE = "climatology_annual.nc"
 BATHYMETRY_FILE = "bathymetry.nc"
 LEVITUS_SOURCE = "levitus_climatology.cdf"
+COADS_SOURCE = "coads_climatology.cdf"
 ETOPO_SOURCE = "etopo5.cdf"
 DEBIAN_PACKAGE = "ferret-datasets"
 
@@ -91,6 +107,9 @@ FLOORS: dict[str, float] = {"temperature": 0.5, "salinity": 0.1}
 
 HEAVE_M = 15.0
 """Typical isopycnal heave (m) used in the variability estimate (judgement)."""
+
+SEASONAL_EFOLD_M = 100.0
+"""e-folding depth (m) of the seasonal temperature term (judgement)."""
 
 BATHY_BLOCK = 2
 """ETOPO5 nodes per block side: 2 x 2 blocks of 5' nodes give a 10' grid."""
@@ -174,7 +193,13 @@ def _vertical_gradient(x: NDArray[np.float64], depth: NDArray[np.float64]) -> ND
 
 
 def variability_estimate(
-    x: NDArray[np.float64], depth: NDArray[np.float64], *, floor: float, heave: float = HEAVE_M
+    x: NDArray[np.float64],
+    depth: NDArray[np.float64],
+    *,
+    floor: float,
+    heave: float = HEAVE_M,
+    season: NDArray[np.float64] | None = None,
+    efold: float = SEASONAL_EFOLD_M,
 ) -> NDArray[np.float64]:
     """Estimate a standard deviation for an annual-mean field (see the module docstring).
 
@@ -188,15 +213,69 @@ def variability_estimate(
         Variability floor, units of `x`.
     heave : float, default=HEAVE_M
         Typical isopycnal displacement, m.
+    season : ndarray of shape (n_lat, n_lon), optional
+        Seasonal standard deviation at the surface (see :func:`seasonal_sst_sd`).
+    efold : float, default=SEASONAL_EFOLD_M
+        e-folding depth of the seasonal term, m.
 
     Returns
     -------
     ndarray of shape (n_depth, n_lat, n_lon)
-        ``sqrt(floor**2 + spread**2 + (heave * gradient)**2)``; NaN on land.
+        ``sqrt(floor**2 + spread**2 + (heave * gradient)**2 [+ (season * exp(-z/efold))**2])``;
+        NaN on land.
     """
     spread = _neighbourhood_spread(x)
     grad = _vertical_gradient(x, depth)
-    return np.sqrt(floor**2 + spread**2 + (heave * grad) ** 2)
+    var = floor**2 + spread**2 + (heave * grad) ** 2
+    if season is not None:
+        var = var + (season[None, :, :] * np.exp(-depth / efold)[:, None, None]) ** 2
+    return np.sqrt(var)
+
+
+def seasonal_sst_sd(
+    path: Path, lat: NDArray[np.float64], lon: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Return the SD over 12 months of COADS monthly SST on a 1-degree grid.
+
+    Parameters
+    ----------
+    path : Path
+        ``coads_climatology.cdf``.
+    lat, lon : ndarray
+        Centres of the target cells, degrees (lon in 0..360).
+
+    Returns
+    -------
+    ndarray of shape (lat.size, lon.size)
+        Population SD over the months of the COADS 2-degree cell holding each target cell;
+        where that cell has no value in some month, the largest SD among its eight
+        neighbours (longitude periodic), else 0.
+    """
+    import netCDF4
+
+    try:
+        with netCDF4.Dataset(path) as ds:
+            cx = np.asarray(ds["COADSX"][:], dtype=np.float64)
+            cy = np.asarray(ds["COADSY"][:], dtype=np.float64)
+            sst = np.ma.filled(ds["SST"][:].astype(np.float64), np.nan)
+    except (OSError, IndexError, KeyError) as exc:
+        raise InputFileError(
+            path, f"cannot read SST ({exc})", f"reinstall {DEBIAN_PACKAGE}"
+        ) from None
+    sd = np.std(sst, axis=0)  # NaN where any month is missing
+    pad = np.pad(sd, ((1, 1), (0, 0)), constant_values=np.nan)
+    ny = sd.shape[0]
+    neigh = np.stack([np.roll(pad[1 + dj : 1 + dj + ny], -di, axis=1)
+                      for dj in (-1, 0, 1) for di in (-1, 0, 1) if dj or di])
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN neighbourhoods
+        fill = np.nanmax(neigh, axis=0)
+    sd = np.where(np.isnan(sd), fill, sd)
+    sd = np.where(np.isnan(sd), 0.0, sd)
+    dx, dy = cx[1] - cx[0], cy[1] - cy[0]
+    ci = np.floor(np.mod(lon - (cx[0] - dx / 2), 360.0) / dx).astype(int) % cx.size
+    cj = np.clip(np.floor((lat - (cy[0] - dy / 2)) / dy).astype(int), 0, cy.size - 1)
+    return sd[cj[:, None], ci[None, :]]
 
 
 def _pack(name: str, values: NDArray[np.float64]) -> NDArray[np.int16]:
@@ -243,15 +322,17 @@ def _read_levitus(path: Path) -> dict[str, NDArray[np.float64]]:
             "t": t[:, :, order], "s": s[:, :, order]}
 
 
-def _write_climatology(src: Path, out: Path, command: str) -> Path:
+def _write_climatology(src: Path, coads: Path, out: Path, command: str) -> Path:
     import netCDF4
 
     lev = _read_levitus(src)
     depth = lev["depth"]
+    season = seasonal_sst_sd(coads, lev["lat"], lev["lon"])
     fields = {
         "t_mean": lev["t"],
         "s_mean": lev["s"],
-        "t_sd": variability_estimate(lev["t"], depth, floor=FLOORS["temperature"]),
+        "t_sd": variability_estimate(lev["t"], depth, floor=FLOORS["temperature"],
+                                     season=season),
         "s_sd": variability_estimate(lev["s"], depth, floor=FLOORS["salinity"]),
     }
     meta = {
@@ -266,8 +347,11 @@ def _write_climatology(src: Path, out: Path, command: str) -> Path:
         "common practice; spread = population SD of the ocean values in the 3x3 neighbourhood "
         "of 1-degree cells at the same depth (longitude periodic); gradient = larger absolute "
         "one-sided vertical gradient |dX/dz| to the adjacent standard levels; heave = "
-        f"{HEAVE_M} m typical isopycnal displacement (judgement). An ESTIMATE derived from "
-        "the annual mean field, not a measured climatological standard deviation."
+        f"{HEAVE_M} m typical isopycnal displacement (judgement). Temperature only adds "
+        "(season*exp(-depth/H))**2 with season = SD over the 12 months of COADS monthly SST "
+        "(coads_climatology.cdf, 2-degree cell holding the 1-degree cell; gaps filled with "
+        f"the largest of the 8 neighbours, else 0) and H = {SEASONAL_EFOLD_M} m (judgement). "
+        "An ESTIMATE, not a measured climatological standard deviation."
     )
     target = out / CLIMATOLOGY_FILE
     with atomic_output(target, overwrite=True) as tmp, netCDF4.Dataset(
@@ -276,7 +360,7 @@ def _write_climatology(src: Path, out: Path, command: str) -> Path:
         ds.setncatts(
             {
                 "title": "Annual temperature and salinity climatology with variability estimate",
-                **_common_attrs({src.name: src}, command),
+                **_common_attrs({src.name: src, coads.name: coads}, command),
                 "variability_method": method,
                 "history": (
                     "Levitus annual climatology from Debian ferret-datasets; longitudes rotated "
@@ -371,7 +455,8 @@ def build(source: Path = DEFAULT_SOURCE, out: Path = DATA_DIR) -> list[Path]:
     Parameters
     ----------
     source : path-like, default=DEFAULT_SOURCE
-        Folder holding ``levitus_climatology.cdf`` and ``etopo5.cdf``.
+        Folder holding ``levitus_climatology.cdf``, ``coads_climatology.cdf`` and
+        ``etopo5.cdf``.
     out : path-like, default=DATA_DIR
         Folder to write ``climatology_annual.nc`` and ``bathymetry.nc`` to (replaced).
 
@@ -386,7 +471,7 @@ def build(source: Path = DEFAULT_SOURCE, out: Path = DATA_DIR) -> list[Path]:
         If a source file is missing or unreadable.
     """
     source, out = Path(source), Path(out)
-    for name in (LEVITUS_SOURCE, ETOPO_SOURCE):
+    for name in (LEVITUS_SOURCE, COADS_SOURCE, ETOPO_SOURCE):
         if not (source / name).is_file():
             raise InputFileError(
                 source / name, "source file not found",
@@ -398,7 +483,7 @@ def build(source: Path = DEFAULT_SOURCE, out: Path = DATA_DIR) -> list[Path]:
         args += ["--out", str(out)]
     command = "python -m qcflag.reference.build " + shlex.join(args)
     return [
-        _write_climatology(source / LEVITUS_SOURCE, out, command),
+        _write_climatology(source / LEVITUS_SOURCE, source / COADS_SOURCE, out, command),
         _write_bathymetry(source / ETOPO_SOURCE, out, command),
     ]
 
