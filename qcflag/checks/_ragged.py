@@ -1,0 +1,305 @@
+"""Vectorised helpers over the ragged batch (flat level arrays + profile offsets).
+
+Every helper works on the whole batch at once: neighbour look-ups are masked at profile
+boundaries, "previous valid level" is an index forward-fill with
+:func:`numpy.maximum.accumulate`, and moving windows are gathered into a
+``(n_levels, window)`` matrix. None of them loops in Python over levels or profiles.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+if TYPE_CHECKING:
+    from numpy.typing import NDArray
+
+    from qcflag.profiles import ProfileBatch
+
+__all__ = [
+    "broadcast_profiles",
+    "exceedance",
+    "gather",
+    "inside_polygon",
+    "moving_median_mad",
+    "next_valid_index",
+    "prev_valid_index",
+    "profile_reduce",
+    "run_lengths",
+    "usable",
+]
+
+
+def usable(values: NDArray[np.float64], exclude: NDArray[np.bool_] | None = None
+           ) -> NDArray[np.bool_]:
+    """Levels whose value is finite and not excluded (already graded bad by an earlier check).
+
+    Parameters
+    ----------
+    values : ndarray of float64, shape (n_levels,)
+        Level values.
+    exclude : ndarray of bool, shape (n_levels,), optional
+        Levels an earlier check graded 4; they are not used as neighbours (Argo flag policy).
+
+    Returns
+    -------
+    ndarray of bool, shape (n_levels,)
+    """
+    ok = np.isfinite(values)
+    if exclude is not None:
+        ok &= ~np.asarray(exclude, dtype=bool)
+    return ok
+
+
+def prev_valid_index(batch: ProfileBatch, valid: NDArray[np.bool_]) -> NDArray[np.int64]:
+    """Index of the nearest valid level above each level in the same profile, -1 if none.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch (for its offsets).
+    valid : ndarray of bool, shape (n_levels,)
+        Which levels may serve as neighbours.
+
+    Returns
+    -------
+    ndarray of int64, shape (n_levels,)
+        ``j < i`` with ``valid[j]`` and ``j`` in the profile of ``i``, the largest such; -1
+        where there is none.
+    """
+    n = valid.size
+    idx = np.where(valid, np.arange(n, dtype=np.int64), -1)
+    filled = np.maximum.accumulate(idx) if n else idx
+    prev = np.empty(n, dtype=np.int64)
+    if n:
+        prev[0] = -1
+        prev[1:] = filled[:-1]
+    start = batch.offsets[:-1][batch.profile_index]
+    prev[prev < start] = -1
+    return prev
+
+
+def next_valid_index(batch: ProfileBatch, valid: NDArray[np.bool_]) -> NDArray[np.int64]:
+    """Index of the nearest valid level below each level in the same profile, -1 if none.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch (for its offsets).
+    valid : ndarray of bool, shape (n_levels,)
+        Which levels may serve as neighbours.
+
+    Returns
+    -------
+    ndarray of int64, shape (n_levels,)
+        Smallest ``j > i`` with ``valid[j]`` in the profile of ``i``; -1 where there is none.
+    """
+    n = valid.size
+    big = np.iinfo(np.int64).max
+    idx = np.where(valid, np.arange(n, dtype=np.int64), big)
+    filled = np.minimum.accumulate(idx[::-1])[::-1] if n else idx
+    nxt = np.empty(n, dtype=np.int64)
+    if n:
+        nxt[-1] = big
+        nxt[:-1] = filled[1:]
+    end = batch.offsets[1:][batch.profile_index]
+    nxt[nxt >= end] = -1
+    return nxt
+
+
+def gather(values: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.float64]:
+    """Values at `index`, NaN where the index is -1.
+
+    Parameters
+    ----------
+    values : ndarray of float64
+        Level values.
+    index : ndarray of int64
+        Indices into `values`; -1 marks "no such level".
+
+    Returns
+    -------
+    ndarray of float64, same shape as `index`
+    """
+    out = np.full(index.shape, np.nan)
+    ok = index >= 0
+    out[ok] = values[index[ok]]
+    return out
+
+
+def broadcast_profiles(batch: ProfileBatch, per_profile: NDArray) -> NDArray:
+    """Repeat a per-profile array to levels, shape (n_levels,)."""
+    return np.asarray(per_profile)[batch.profile_index]
+
+
+def profile_reduce(batch: ProfileBatch, values: NDArray[np.float64],
+                   valid: NDArray[np.bool_], kind: str) -> NDArray[np.float64]:
+    """Reduce the valid values of each profile to one number.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    values : ndarray of float64, shape (n_levels,)
+        Level values.
+    valid : ndarray of bool, shape (n_levels,)
+        Levels to include.
+    kind : {"min", "max", "count"}
+        The reduction.
+
+    Returns
+    -------
+    ndarray of float64, shape (n_profiles,)
+        NaN for "min"/"max" of a profile without valid levels.
+    """
+    pi = batch.profile_index
+    if kind == "count":
+        return np.bincount(pi, weights=valid.astype(np.float64), minlength=batch.n_profiles)
+    out = np.full(batch.n_profiles, np.inf if kind == "min" else -np.inf)
+    ufunc = np.minimum if kind == "min" else np.maximum
+    ufunc.at(out, pi[valid], values[valid])
+    out[~np.isfinite(out)] = np.nan
+    return out
+
+
+def exceedance(values: NDArray[np.float64], minimum: float | None,
+               maximum: float | None) -> NDArray[np.float64]:
+    """Signed distance outside ``[minimum, maximum]``: negative inside, positive outside.
+
+    Parameters
+    ----------
+    values : ndarray of float64
+        Values to test.
+    minimum, maximum : float or None
+        Limits; a missing limit does not bound.
+
+    Returns
+    -------
+    ndarray of float64
+        ``max(minimum - v, v - maximum)``; NaN where `values` is NaN.
+    """
+    lo = np.full(values.shape, -np.inf) if minimum is None else minimum - values
+    hi = np.full(values.shape, -np.inf) if maximum is None else values - maximum
+    out = np.maximum(lo, hi)
+    out[np.isnan(values)] = np.nan
+    return out
+
+
+def inside_polygon(lat: NDArray[np.float64], lon: NDArray[np.float64],
+                   polygon: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """Even-odd point-in-polygon test, vectorised over points.
+
+    Parameters
+    ----------
+    lat, lon : ndarray of float64, shape (n,)
+        Points, degrees north and east.
+    polygon : ndarray of float64, shape (n_vertices, 2)
+        Vertices as (latitude, longitude); closing the ring is optional. Longitudes are
+        taken as given (no wrap at the date line).
+
+    Returns
+    -------
+    ndarray of bool, shape (n,)
+        True inside; NaN positions are outside.
+
+    Notes
+    -----
+    Loops over the polygon's edges only (a handful), never over points.
+    """
+    poly = np.asarray(polygon, dtype=np.float64)
+    y0, x0 = poly[:, 0], poly[:, 1]
+    y1, x1 = np.roll(y0, -1), np.roll(x0, -1)
+    inside = np.zeros(lat.shape, dtype=bool)
+    for ya, xa, yb, xb in zip(y0, x0, y1, x1, strict=True):
+        if ya == yb:
+            continue  # horizontal edge: never crossed by the horizontal ray
+        spans = (ya > lat) != (yb > lat)
+        cross_x = xa + (lat - ya) * (xb - xa) / (yb - ya)
+        inside ^= spans & (lon < cross_x)
+    return inside
+
+
+def run_lengths(batch: ProfileBatch, same_as_prev: NDArray[np.bool_]
+                ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Length of the run each level belongs to, and its position in that run.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch; runs never cross profile boundaries.
+    same_as_prev : ndarray of bool, shape (n_levels,)
+        True where a level continues the run of the level above it.
+
+    Returns
+    -------
+    length : ndarray of int64, shape (n_levels,)
+        Number of levels in the run.
+    position : ndarray of int64, shape (n_levels,)
+        1-based position of the level in its run.
+    """
+    n = same_as_prev.size
+    if n == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    starts = ~same_as_prev | batch.first_level
+    run_id = np.cumsum(starts) - 1
+    lengths = np.bincount(run_id)
+    start_idx = np.flatnonzero(starts)
+    position = np.arange(n, dtype=np.int64) - start_idx[run_id] + 1
+    return lengths[run_id].astype(np.int64), position
+
+
+def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
+                      valid: NDArray[np.bool_], half_window: int
+                      ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.int64]]:
+    """Median and median absolute deviation in a centred window of levels, per profile.
+
+    The window of level ``i`` holds levels ``i - half_window .. i + half_window`` of the same
+    profile that are `valid`. Windows are gathered into a matrix and sorted row-wise (NaN
+    last); no Python loop over levels or profiles.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    values : ndarray of float64, shape (n_levels,)
+        Level values.
+    valid : ndarray of bool, shape (n_levels,)
+        Levels allowed in windows.
+    half_window : int
+        Number of levels on each side.
+
+    Returns
+    -------
+    median, mad : ndarray of float64, shape (n_levels,)
+        NaN where the window holds no valid level. For an even count the median is the mean
+        of the two middle values.
+    count : ndarray of int64, shape (n_levels,)
+        Valid levels in each window.
+    """
+    n = values.size
+    k = int(half_window)
+    offs = np.arange(-k, k + 1, dtype=np.int64)
+    idx = np.arange(n, dtype=np.int64)[:, None] + offs[None, :]
+    pi = batch.profile_index
+    inb = (idx >= 0) & (idx < n)
+    idc = np.clip(idx, 0, max(n - 1, 0))
+    ok = inb & valid[idc] & (pi[idc] == pi[:, None])
+    win = np.where(ok, values[idc], np.nan)
+    count = ok.sum(axis=1)
+    win.sort(axis=1)
+    med = _middle(win, count)
+    dev = np.abs(win - med[:, None])
+    dev.sort(axis=1)
+    mad = _middle(dev, count)
+    return med, mad, count
+
+
+def _middle(sorted_rows: NDArray[np.float64], count: NDArray[np.int64]) -> NDArray[np.float64]:
+    rows = np.arange(sorted_rows.shape[0])
+    lo = np.maximum((count - 1) // 2, 0)
+    hi = np.maximum(count // 2, 0)
+    hi = np.minimum(hi, sorted_rows.shape[1] - 1)
+    out = (sorted_rows[rows, lo] + sorted_rows[rows, hi]) / 2
+    out[count == 0] = np.nan
+    return out
