@@ -1,0 +1,781 @@
+"""Estimators for ordinal quality grades, with the scikit-learn API.
+
+Labels are ordered grades; by default the four grades of qcflag (1 good < 2 probably good <
+3 probably bad < 4 bad), and ``predict_proba`` always has one column per grade in that order,
+with zeros for grades that were absent from the training labels. Passing ``classes=None``
+uses the sorted distinct training labels instead (any orderable labels); the scikit-learn
+estimator checks run that way.
+
+Models
+------
+:class:`OrdinalLogistic`
+    Ordinal logistic regression (all-threshold or immediate-threshold variant of Rennie &
+    Srebro 2005, via ``mord``) after median imputation and standard scaling.
+:class:`CumulativeBoostedClassifier`
+    Frank & Hall (2001) cumulative binary decomposition: one gradient-boosted tree model per
+    threshold estimates ``P(y > k)``; the cumulative probabilities are made monotone and
+    differenced into class probabilities.
+:class:`NominalLogistic`
+    Multinomial logistic regression that ignores the order (baseline).
+:class:`AlwaysGood`
+    Predicts the best grade everywhere (baseline); probabilities are the training priors.
+:class:`RulesOnly`
+    Predicts the rule grade found in one feature column (baseline).
+
+Class imbalance
+---------------
+Bad levels are rare (often well under 1 % of an archive). All learning models take
+``class_weight``: ``"balanced"`` weights each level by ``n / (n_classes * n_k)``, ``"sqrt"``
+(the default) by the square root of that, and ``None`` not at all. The square root is a
+compromise: full balancing pushes many good levels into the suspect grades, while no
+weighting lets the rare grades vanish from linear fits. The weights enter as sample weights;
+``mord`` 0.7's ``LogisticAT``/``LogisticIT`` accept ``sample_weight`` in ``fit`` and pass it
+into their loss, and ``HistGradientBoostingClassifier``/``LogisticRegression`` do natively.
+Weighting shifts the predicted probabilities toward the rare grades; they are not calibrated
+frequencies.
+
+Decision rule
+-------------
+The ordinal models predict the *median* of the predicted grade distribution (the smallest
+grade whose cumulative probability reaches 0.5), which minimises the expected absolute grade
+error; this is also ``mord``'s own rule for the threshold models. The nominal baseline
+predicts the most probable grade (its natural rule).
+
+References
+----------
+Rennie, J. D. M. and Srebro, N. (2005). Loss functions for preference levels: regression
+with discrete ordered labels. Proc. IJCAI Multidisciplinary Workshop on Advances in
+Preference Handling.
+
+Frank, E. and Hall, M. (2001). A simple approach to ordinal classification. Proc. 12th
+European Conference on Machine Learning, LNCS 2167, 145-156.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, Any, ClassVar, Literal
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from qcflag.learn.trees import TreeEnsemble, expit
+
+if TYPE_CHECKING:
+    from numpy.typing import ArrayLike, NDArray
+
+__all__ = [
+    "ESTIMATORS",
+    "GRADES",
+    "AlwaysGood",
+    "CumulativeBoostedClassifier",
+    "NominalLogistic",
+    "OrdinalLogistic",
+    "RulesOnly",
+    "make_estimator",
+]
+
+GRADES: tuple[int, ...] = (1, 2, 3, 4)
+"""The ordinal grades every qcflag model predicts, best first."""
+
+ClassWeight = Literal["balanced", "sqrt"] | None
+
+
+# --------------------------------------------------------------------------- helpers
+def _sigmoid(x: NDArray[np.float64]) -> NDArray[np.float64]:
+    return expit(np.asarray(x, dtype=np.float64))
+
+
+def _class_sample_weight(y_idx: NDArray[np.int64], mode: ClassWeight) -> NDArray[np.float64]:
+    """Per-sample weights from encoded labels (see the module docstring)."""
+    if mode is None:
+        return np.ones(y_idx.size)
+    if mode not in ("balanced", "sqrt"):
+        raise ValueError(f"class_weight must be 'balanced', 'sqrt' or None, got {mode!r}")
+    counts = np.bincount(y_idx)
+    present = counts > 0
+    w_class = np.zeros(counts.size)
+    w_class[present] = y_idx.size / (present.sum() * counts[present])
+    if mode == "sqrt":
+        w_class = np.sqrt(w_class)
+    return w_class[y_idx]
+
+
+def _median_index(proba: NDArray[np.float64]) -> NDArray[np.int64]:
+    """Column of the median of each row's distribution (first cumulative >= 0.5)."""
+    cum = np.cumsum(proba, axis=1)
+    idx = (cum < 0.5 - 1e-12).sum(axis=1)
+    return np.minimum(idx, proba.shape[1] - 1)
+
+
+class _GradeEstimator(ClassifierMixin, BaseEstimator):
+    """Shared label handling, validation and persistence hooks."""
+
+    _ordinal: ClassVar[bool] = True
+    #: names of the fitted ndarray attributes written to a model file
+    _array_attrs: ClassVar[tuple[str, ...]] = ()
+    #: names of fitted scalar (JSON) attributes written to a model file
+    _scalar_attrs: ClassVar[tuple[str, ...]] = ()
+
+    classes: Any
+
+    def __sklearn_tags__(self) -> Any:
+        tags = super().__sklearn_tags__()
+        tags.input_tags.allow_nan = True
+        return tags
+
+    # labels ---------------------------------------------------------------
+    def _encode_labels(self, y: NDArray[Any]) -> NDArray[np.int64]:
+        """Set ``classes_``/``seen_`` and return label indices into ``classes_``."""
+        if self.classes is None:
+            classes = np.unique(y)
+        else:
+            classes = np.asarray(self.classes)
+            if classes.ndim != 1 or classes.size < 1:
+                raise ValueError("classes must be a non-empty 1-D sequence")
+            if (np.diff(classes) <= 0).any():
+                raise ValueError("classes must be strictly increasing")
+            unknown = ~np.isin(y, classes)
+            if unknown.any():
+                raise ValueError(
+                    f"y holds labels {np.unique(y[unknown]).tolist()[:5]} outside classes "
+                    f"{classes.tolist()}"
+                )
+        self.classes_ = classes
+        y_idx = np.searchsorted(classes, y).astype(np.int64)
+        self.seen_ = np.isin(np.arange(classes.size), y_idx)
+        return y_idx
+
+    def _validate_fit(self, X: ArrayLike, y: ArrayLike) -> tuple[NDArray[np.float64], Any]:
+        X, y = validate_data(self, X, y, ensure_all_finite="allow-nan", dtype=np.float64)
+        from sklearn.utils.multiclass import check_classification_targets
+
+        check_classification_targets(y)
+        return X, y
+
+    def _validate_predict(self, X: ArrayLike) -> NDArray[np.float64]:
+        check_is_fitted(self)
+        return validate_data(
+            self, X, reset=False, ensure_all_finite="allow-nan", dtype=np.float64
+        )
+
+    def _pad(self, proba_seen: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Place probabilities of the seen classes into all ``classes_`` columns."""
+        out = np.zeros((proba_seen.shape[0], self.classes_.size), dtype=np.float64)
+        out[:, self.seen_] = proba_seen
+        return out
+
+    def predict(self, X: ArrayLike) -> NDArray[Any]:
+        """Predict the grade of every sample.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+
+        Returns
+        -------
+        ndarray of shape (n_samples,)
+            Values of ``classes_``: the median of the predicted distribution for ordinal
+            models, the most probable class otherwise.
+        """
+        proba = self.predict_proba(X)
+        idx = _median_index(proba) if self._ordinal else np.argmax(proba, axis=1)
+        return self.classes_[idx]
+
+    def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Cheap per-feature attribution of each sample's 'badness', shape (n, n_features).
+
+        Positive values push toward worse (higher) grades. Linear models: coefficient times
+        the standardised value; boosted trees: path attributions summed over thresholds;
+        baselines: zeros (:class:`RulesOnly`: the rule grade minus one in its column).
+        """
+        X = self._validate_predict(X)
+        return np.zeros_like(X)
+
+    # persistence ------------------------------------------------------------
+    def _export(self) -> tuple[dict[str, Any], dict[str, NDArray[Any]]]:
+        """(JSON-able params + scalars, arrays) describing the fitted state."""
+        check_is_fitted(self)
+        params = dict(self.get_params(deep=False))
+        if params.get("classes") is not None:
+            params["classes"] = [int(c) for c in params["classes"]]
+        scalars = {k: getattr(self, k) for k in self._scalar_attrs}
+        arrays = {k: np.asarray(getattr(self, k)) for k in self._array_attrs}
+        arrays["classes_"] = np.asarray(self.classes_)
+        arrays["seen_"] = np.asarray(self.seen_)
+        meta = {"params": params, "fitted": scalars, "fitted_n_features": int(self.n_features_in_)}
+        return meta, arrays
+
+    @classmethod
+    def _restore(cls, meta: dict[str, Any], arrays: dict[str, NDArray[Any]]) -> Any:
+        est = cls(**meta["params"])
+        for k, v in meta["fitted"].items():
+            setattr(est, k, v)
+        for k in (*cls._array_attrs, "classes_", "seen_"):
+            setattr(est, k, arrays[k])
+        est.n_features_in_ = int(meta["fitted_n_features"])
+        return est
+
+
+def _fit_scaling(
+    X: NDArray[np.float64],
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], Any, Any]:
+    """Fit SimpleImputer(median) + StandardScaler; return their statistics and objects."""
+    from sklearn.impute import SimpleImputer
+    from sklearn.preprocessing import StandardScaler
+
+    imp = SimpleImputer(strategy="median", keep_empty_features=True).fit(X)
+    sc = StandardScaler().fit(imp.transform(X))
+    return (np.asarray(imp.statistics_, dtype=np.float64), sc.mean_.astype(np.float64),
+            sc.scale_.astype(np.float64), imp, sc)
+
+
+def _standardise(
+    X: NDArray[np.float64], fill: NDArray[np.float64], mean: NDArray[np.float64],
+    scale: NDArray[np.float64],
+) -> NDArray[np.float64]:
+    Z = np.where(np.isnan(X), fill, X)
+    Z -= mean
+    Z /= scale
+    return Z
+
+
+# --------------------------------------------------------------------------- baselines
+class AlwaysGood(_GradeEstimator):
+    """Baseline that calls every level good (the lowest class).
+
+    Parameters
+    ----------
+    classes : sequence of int or None, default=(1, 2, 3, 4)
+        Ordered labels; None uses the sorted distinct training labels.
+
+    Attributes
+    ----------
+    classes_ : ndarray of shape (n_classes,)
+        Ordered labels, the columns of ``predict_proba``.
+    seen_ : ndarray of bool, shape (n_classes,)
+        Which classes occurred in the training labels.
+    prior_ : ndarray of shape (n_classes,)
+        Training class frequencies, returned by ``predict_proba`` for every sample.
+    n_features_in_ : int
+        Number of features seen in ``fit``.
+    feature_names_in_ : ndarray of str
+        Feature names seen in ``fit`` (only when X had string column names).
+    """
+
+    _array_attrs = ("prior_",)
+
+    def __init__(self, *, classes: ArrayLike | None = GRADES) -> None:
+        self.classes = classes
+
+    def fit(self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None) -> AlwaysGood:
+        """Record the class priors; `groups` is ignored."""
+        X, y = self._validate_fit(X, y)
+        y_idx = self._encode_labels(y)
+        self.prior_ = np.bincount(y_idx, minlength=self.classes_.size) / y_idx.size
+        return self
+
+    def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Training priors for every sample, shape (n_samples, n_classes)."""
+        X = self._validate_predict(X)
+        return np.tile(self.prior_, (X.shape[0], 1))
+
+    def predict(self, X: ArrayLike) -> NDArray[Any]:
+        """Predict the lowest (best) class for every sample."""
+        X = self._validate_predict(X)
+        return np.full(X.shape[0], self.classes_[0])
+
+
+class RulesOnly(_GradeEstimator):
+    """Baseline that predicts the rule grade stored in one feature column.
+
+    ``predict`` returns the rule grade itself (snapped to the nearest class);
+    ``predict_proba`` returns the training frequency of each class among levels with the same
+    rule grade (Laplace-smoothed), so probability-based scores rank levels by their rule grade.
+
+    Parameters
+    ----------
+    column : int, default=-1
+        Index of the feature column holding the rule grade.
+    classes : sequence of int or None, default=(1, 2, 3, 4)
+        Ordered labels; None uses the sorted distinct training labels.
+
+    Attributes
+    ----------
+    classes_ : ndarray of shape (n_classes,)
+        Ordered labels.
+    seen_ : ndarray of bool, shape (n_classes,)
+        Which classes occurred in the training labels.
+    rule_values_ : ndarray of float64
+        Distinct rule grades seen in training.
+    table_ : ndarray of shape (n_rule_values + 1, n_classes)
+        Class frequencies per rule grade; the last row (overall frequencies) serves rule
+        grades not seen in training.
+    n_features_in_ : int
+        Number of features seen in ``fit``.
+    feature_names_in_ : ndarray of str
+        Feature names seen in ``fit`` (only when X had string column names).
+    """
+
+    _array_attrs = ("rule_values_", "table_")
+
+    def __init__(self, *, column: int = -1, classes: ArrayLike | None = GRADES) -> None:
+        self.column = column
+        self.classes = classes
+
+    def _rule(self, X: NDArray[np.float64]) -> NDArray[np.float64]:
+        if not -X.shape[1] <= self.column < X.shape[1]:
+            raise ValueError(f"column {self.column} is outside the {X.shape[1]} features")
+        return np.round(X[:, self.column])
+
+    def fit(self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None) -> RulesOnly:
+        """Tabulate class frequencies per rule grade; `groups` is ignored."""
+        X, y = self._validate_fit(X, y)
+        y_idx = self._encode_labels(y)
+        r = self._rule(X)
+        r = np.where(np.isnan(r), -1.0, r)
+        self.rule_values_ = np.unique(r)
+        k = self.classes_.size
+        rows = np.searchsorted(self.rule_values_, r)
+        table = np.zeros((self.rule_values_.size + 1, k))
+        np.add.at(table, (rows, y_idx), 1.0)
+        table[-1] = table[:-1].sum(axis=0)
+        table[:, self.seen_] += 1.0  # Laplace smoothing over the seen classes
+        self.table_ = table / table.sum(axis=1, keepdims=True)
+        return self
+
+    def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Training class frequencies given the rule grade, shape (n_samples, n_classes)."""
+        X = self._validate_predict(X)
+        r = self._rule(X)
+        r = np.where(np.isnan(r), -1.0, r)
+        pos = np.clip(np.searchsorted(self.rule_values_, r), 0, self.rule_values_.size - 1)
+        known = self.rule_values_[pos] == r
+        return self.table_[np.where(known, pos, self.rule_values_.size)]
+
+    def predict(self, X: ArrayLike) -> NDArray[Any]:
+        """Predict the rule grade of every sample, snapped to the nearest class."""
+        X = self._validate_predict(X)
+        r = self._rule(X)
+        r = np.where(np.isnan(r), self.classes_[0], r).astype(np.float64)
+        cls = self.classes_.astype(np.float64)
+        idx = np.abs(r[:, None] - cls[None, :]).argmin(axis=1)
+        return self.classes_[idx]
+
+    def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Rule grade minus one in the rule column, zeros elsewhere."""
+        X = self._validate_predict(X)
+        out = np.zeros_like(X)
+        out[:, self.column] = np.nan_to_num(self._rule(X) - 1.0)
+        return out
+
+
+# --------------------------------------------------------------------------- linear
+class OrdinalLogistic(_GradeEstimator):
+    """Ordinal logistic regression (``mord``) after imputation and scaling.
+
+    The model is ``P(y <= k | x) = sigmoid(theta_k - w . z)`` with ``z`` the median-imputed,
+    standardised features: one weight vector and ordered thresholds, so a larger ``w . z``
+    moves probability toward worse grades.
+
+    Parameters
+    ----------
+    kind : {"at", "it"}, default="at"
+        All-threshold (``mord.LogisticAT``, a surrogate of the absolute error) or
+        immediate-threshold (``mord.LogisticIT``, a surrogate of the 0-1 loss) loss.
+    alpha : float, default=1.0
+        L2 regularisation strength.
+    max_iter : int, default=1000
+        L-BFGS-B iterations.
+    class_weight : {"sqrt", "balanced"} or None, default="sqrt"
+        Sample weighting against class imbalance (see the module docstring).
+    classes : sequence of int or None, default=(1, 2, 3, 4)
+        Ordered labels; None uses the sorted distinct training labels.
+
+    Attributes
+    ----------
+    classes_ : ndarray of shape (n_classes,)
+        Ordered labels, the columns of ``predict_proba``.
+    seen_ : ndarray of bool, shape (n_classes,)
+        Which classes occurred in the training labels (others get probability 0).
+    pipeline_ : sklearn.pipeline.Pipeline or None
+        The fitted SimpleImputer + StandardScaler + mord pipeline (None after loading a model
+        file; prediction uses the arrays below, which the pipeline produced).
+    fill_ : ndarray of shape (n_features,)
+        Imputation value (training median) of each feature.
+    mean_, scale_ : ndarray of shape (n_features,)
+        Standardisation applied after imputation.
+    coef_ : ndarray of shape (n_features,)
+        Weights ``w`` on the standardised features.
+    theta_ : ndarray of shape (n_seen - 1,)
+        Ordered thresholds between consecutive seen classes.
+    n_features_in_ : int
+        Number of features seen in ``fit``.
+    feature_names_in_ : ndarray of str
+        Feature names seen in ``fit`` (only when X had string column names).
+    """
+
+    _array_attrs = ("fill_", "mean_", "scale_", "coef_", "theta_")
+
+    def __init__(
+        self,
+        kind: Literal["at", "it"] = "at",
+        alpha: float = 1.0,
+        *,
+        max_iter: int = 1000,
+        class_weight: ClassWeight = "sqrt",
+        classes: ArrayLike | None = GRADES,
+    ) -> None:
+        self.kind = kind
+        self.alpha = alpha
+        self.max_iter = max_iter
+        self.class_weight = class_weight
+        self.classes = classes
+
+    def fit(
+        self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None
+    ) -> OrdinalLogistic:
+        """Fit the pipeline; `groups` is accepted for API symmetry and ignored.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+            Features; NaN allowed (imputed with the training median).
+        y : array-like of shape (n_samples,)
+            Ordered labels.
+        groups : array-like, optional
+            Ignored.
+
+        Returns
+        -------
+        self
+        """
+        import mord
+        from sklearn.pipeline import Pipeline
+
+        if self.kind not in ("at", "it"):
+            raise ValueError(f"kind must be 'at' or 'it', got {self.kind!r}")
+        X, y = self._validate_fit(X, y)
+        y_idx = self._encode_labels(y)
+        sw = _class_sample_weight(y_idx, self.class_weight)
+        seen = np.flatnonzero(self.seen_)
+        y_seen = np.searchsorted(seen, y_idx)
+        fill, mean, scale, imp, sc = _fit_scaling(X)
+        self.fill_, self.mean_, self.scale_ = fill, mean, scale
+        if seen.size < 2:
+            self.pipeline_ = None
+            self.coef_ = np.zeros(X.shape[1])
+            self.theta_ = np.zeros(0)
+            return self
+        model_cls = mord.LogisticAT if self.kind == "at" else mord.LogisticIT
+        ordinal = model_cls(alpha=self.alpha, max_iter=self.max_iter)
+        pipe = Pipeline([("impute", imp), ("scale", sc), ("ordinal", ordinal)])
+        ordinal.fit(_standardise(X, fill, mean, scale), y_seen, sample_weight=sw)
+        self.pipeline_ = pipe
+        self.coef_ = np.asarray(ordinal.coef_, dtype=np.float64)
+        self.theta_ = np.asarray(ordinal.theta_, dtype=np.float64)
+        return self
+
+    def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Probability of each class, shape (n_samples, n_classes), rows sum to 1."""
+        X = self._validate_predict(X)
+        n_seen = int(self.seen_.sum())
+        if n_seen < 2:
+            return self._pad(np.ones((X.shape[0], 1)))
+        eta = _standardise(X, self.fill_, self.mean_, self.scale_) @ self.coef_
+        cum = _sigmoid(self.theta_[None, :] - eta[:, None])  # P(y <= k)
+        cum = np.hstack([np.zeros((X.shape[0], 1)), cum, np.ones((X.shape[0], 1))])
+        return self._pad(np.diff(cum, axis=1))
+
+    def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Coefficient times standardised value, shape (n_samples, n_features)."""
+        X = self._validate_predict(X)
+        return _standardise(X, self.fill_, self.mean_, self.scale_) * self.coef_
+
+    @classmethod
+    def _restore(cls, meta: dict[str, Any], arrays: dict[str, NDArray[Any]]) -> Any:
+        est = super()._restore(meta, arrays)
+        est.pipeline_ = None
+        return est
+
+
+class NominalLogistic(_GradeEstimator):
+    """Multinomial logistic regression that ignores the order of the grades (baseline).
+
+    Parameters
+    ----------
+    C : float, default=1.0
+        Inverse L2 regularisation strength.
+    max_iter : int, default=300
+        lbfgs iterations.
+    class_weight : {"sqrt", "balanced"} or None, default="sqrt"
+        Sample weighting against class imbalance (see the module docstring).
+    classes : sequence of int or None, default=(1, 2, 3, 4)
+        Ordered labels; None uses the sorted distinct training labels.
+
+    Attributes
+    ----------
+    classes_ : ndarray of shape (n_classes,)
+        Ordered labels.
+    seen_ : ndarray of bool, shape (n_classes,)
+        Which classes occurred in the training labels.
+    pipeline_ : sklearn.pipeline.Pipeline or None
+        The fitted imputer + scaler + LogisticRegression (None after loading).
+    fill_, mean_, scale_ : ndarray of shape (n_features,)
+        Imputation and standardisation statistics.
+    coef_ : ndarray of shape (n_seen, n_features)
+        Weights per seen class (softmax parametrisation).
+    intercept_ : ndarray of shape (n_seen,)
+        Intercept per seen class.
+    n_features_in_ : int
+        Number of features seen in ``fit``.
+    feature_names_in_ : ndarray of str
+        Feature names seen in ``fit`` (only when X had string column names).
+    """
+
+    _ordinal = False
+    _array_attrs = ("fill_", "mean_", "scale_", "coef_", "intercept_")
+
+    def __init__(
+        self,
+        C: float = 1.0,
+        *,
+        max_iter: int = 300,
+        class_weight: ClassWeight = "sqrt",
+        classes: ArrayLike | None = GRADES,
+    ) -> None:
+        self.C = C
+        self.max_iter = max_iter
+        self.class_weight = class_weight
+        self.classes = classes
+
+    def fit(
+        self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None
+    ) -> NominalLogistic:
+        """Fit the pipeline; `groups` is ignored."""
+        from sklearn.linear_model import LogisticRegression
+        from sklearn.pipeline import Pipeline
+
+        X, y = self._validate_fit(X, y)
+        y_idx = self._encode_labels(y)
+        sw = _class_sample_weight(y_idx, self.class_weight)
+        fill, mean, scale, imp, sc = _fit_scaling(X)
+        self.fill_, self.mean_, self.scale_ = fill, mean, scale
+        n_seen = int(self.seen_.sum())
+        if n_seen < 2:
+            self.pipeline_ = None
+            self.coef_ = np.zeros((1, X.shape[1]))
+            self.intercept_ = np.zeros(1)
+            return self
+        lr = LogisticRegression(C=self.C, max_iter=self.max_iter)
+        lr.fit(_standardise(X, fill, mean, scale), y_idx, sample_weight=sw)
+        self.pipeline_ = Pipeline([("impute", imp), ("scale", sc), ("logistic", lr)])
+        coef = np.asarray(lr.coef_, dtype=np.float64)
+        icpt = np.asarray(lr.intercept_, dtype=np.float64)
+        if n_seen == 2:  # binary: one row for the second class; softmax-equivalent form
+            coef = np.vstack([-coef / 2, coef / 2])
+            icpt = np.array([-icpt[0] / 2, icpt[0] / 2])
+        self.coef_, self.intercept_ = coef, icpt
+        return self
+
+    def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Softmax probabilities, shape (n_samples, n_classes)."""
+        X = self._validate_predict(X)
+        if self.seen_.sum() < 2:
+            return self._pad(np.ones((X.shape[0], 1)))
+        z = _standardise(X, self.fill_, self.mean_, self.scale_) @ self.coef_.T
+        z += self.intercept_
+        z -= z.max(axis=1, keepdims=True)
+        np.exp(z, out=z)
+        z /= z.sum(axis=1, keepdims=True)
+        return self._pad(z)
+
+    def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Standardised value times (worst-seen minus best-seen class weight)."""
+        X = self._validate_predict(X)
+        w = self.coef_[-1] - self.coef_[0]
+        return _standardise(X, self.fill_, self.mean_, self.scale_) * w
+
+
+# --------------------------------------------------------------------------- boosted
+class CumulativeBoostedClassifier(_GradeEstimator):
+    """Frank & Hall cumulative decomposition over gradient-boosted trees.
+
+    For each threshold between consecutive seen classes ``k`` one
+    :class:`~sklearn.ensemble.HistGradientBoostingClassifier` learns ``P(y > k)``. Separate
+    binary models need not agree, so the cumulative probabilities are made non-increasing in
+    ``k`` with a running minimum before differencing:
+    ``P(y = c_0) = 1 - P(y > c_0)``, ``P(y = c_j) = P(y > c_{j-1}) - P(y > c_j)``,
+    ``P(y = c_last) = P(y > c_{last-1})``; every row is then non-negative and sums to 1.
+
+    The fitted trees are kept as plain arrays (:class:`qcflag.learn.trees.TreeEnsemble`), and
+    prediction always goes through them, so a model reloaded from a file predicts exactly
+    what the freshly fitted one did.
+
+    Parameters
+    ----------
+    max_iter : int, default=100
+        Boosting iterations per threshold.
+    learning_rate : float, default=0.1
+        Shrinkage.
+    max_leaf_nodes : int, default=31
+        Leaves per tree.
+    min_samples_leaf : int, default=20
+        Minimum samples per leaf.
+    l2_regularization : float, default=0.0
+        L2 penalty on leaf values.
+    class_weight : {"sqrt", "balanced"} or None, default="sqrt"
+        Sample weighting against class imbalance, from the multi-class labels.
+    random_state : int or None, default=0
+        Seed of the boosting models.
+    classes : sequence of int or None, default=(1, 2, 3, 4)
+        Ordered labels; None uses the sorted distinct training labels.
+
+    Attributes
+    ----------
+    classes_ : ndarray of shape (n_classes,)
+        Ordered labels.
+    seen_ : ndarray of bool, shape (n_classes,)
+        Which classes occurred in the training labels.
+    ensembles_ : list of TreeEnsemble
+        One per threshold, ``P(y > k)`` for the ``k``-th seen class.
+    n_features_in_ : int
+        Number of features seen in ``fit``.
+    feature_names_in_ : ndarray of str
+        Feature names seen in ``fit`` (only when X had string column names).
+    """
+
+    def __init__(
+        self,
+        *,
+        max_iter: int = 100,
+        learning_rate: float = 0.1,
+        max_leaf_nodes: int = 31,
+        min_samples_leaf: int = 20,
+        l2_regularization: float = 0.0,
+        class_weight: ClassWeight = "sqrt",
+        random_state: int | None = 0,
+        classes: ArrayLike | None = GRADES,
+    ) -> None:
+        self.max_iter = max_iter
+        self.learning_rate = learning_rate
+        self.max_leaf_nodes = max_leaf_nodes
+        self.min_samples_leaf = min_samples_leaf
+        self.l2_regularization = l2_regularization
+        self.class_weight = class_weight
+        self.random_state = random_state
+        self.classes = classes
+
+    def fit(
+        self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None
+    ) -> CumulativeBoostedClassifier:
+        """Fit one boosted model per threshold; `groups` is ignored."""
+        from sklearn.ensemble import HistGradientBoostingClassifier
+
+        X, y = self._validate_fit(X, y)
+        y_idx = self._encode_labels(y)
+        sw = _class_sample_weight(y_idx, self.class_weight)
+        seen = np.flatnonzero(self.seen_)
+        self.ensembles_ = []
+        for k in seen[:-1]:
+            hgb = HistGradientBoostingClassifier(
+                max_iter=self.max_iter,
+                learning_rate=self.learning_rate,
+                max_leaf_nodes=self.max_leaf_nodes,
+                min_samples_leaf=self.min_samples_leaf,
+                l2_regularization=self.l2_regularization,
+                early_stopping=False,
+                random_state=self.random_state,
+            )
+            hgb.fit(X, (y_idx > k).astype(np.int64), sample_weight=sw)
+            self.ensembles_.append(TreeEnsemble.from_sklearn(hgb))
+        return self
+
+    def cumulative_proba(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Monotone ``P(y > k)`` per threshold between seen classes, shape (n, n_seen - 1)."""
+        X = self._validate_predict(X)
+        if not self.ensembles_:
+            return np.zeros((X.shape[0], 0))
+        X = np.ascontiguousarray(X)
+        gt = np.column_stack([expit(e.raw(X)) for e in self.ensembles_])
+        return np.minimum.accumulate(gt, axis=1)
+
+    def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Probability of each class, shape (n_samples, n_classes), rows sum to 1."""
+        gt = self.cumulative_proba(X)
+        n = gt.shape[0]
+        upper = np.hstack([np.ones((n, 1)), gt])  # P(y > previous)
+        lower = np.hstack([gt, np.zeros((n, 1))])  # P(y > this)
+        return self._pad(upper - lower)
+
+    def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Path attributions of the log-odds, summed over the thresholds."""
+        X = self._validate_predict(X)
+        out = np.zeros_like(X)
+        for e in self.ensembles_:
+            out += e.contributions(X)
+        return out
+
+    def _export(self) -> tuple[dict[str, Any], dict[str, NDArray[Any]]]:
+        meta, arrays = super()._export()
+        metas = []
+        for i, e in enumerate(self.ensembles_):
+            m, a = e.to_arrays(f"t{i}_")
+            metas.append(m)
+            arrays.update(a)
+        meta["ensembles"] = metas
+        return meta, arrays
+
+    @classmethod
+    def _restore(cls, meta: dict[str, Any], arrays: dict[str, NDArray[Any]]) -> Any:
+        est = super()._restore(meta, arrays)
+        est.ensembles_ = [
+            TreeEnsemble.from_arrays(m, arrays, f"t{i}_") for i, m in enumerate(meta["ensembles"])
+        ]
+        if len(est.ensembles_) != max(int(np.sum(est.seen_)) - 1, 0):
+            raise ValueError("number of threshold models does not match the seen classes")
+        return est
+
+
+ESTIMATORS: dict[str, type[_GradeEstimator]] = {
+    "AlwaysGood": AlwaysGood,
+    "RulesOnly": RulesOnly,
+    "OrdinalLogistic": OrdinalLogistic,
+    "NominalLogistic": NominalLogistic,
+    "CumulativeBoostedClassifier": CumulativeBoostedClassifier,
+}
+"""The estimator classes a model file may name (nothing else is ever instantiated)."""
+
+
+def make_estimator(name: str, *, seed: int = 0, rule_column: int = -1) -> _GradeEstimator:
+    """Build an estimator from its command-line name.
+
+    Parameters
+    ----------
+    name : {"boosted", "logistic-at", "logistic-it", "nominal", "rules", "always-good"}
+        Which model.
+    seed : int, default=0
+        Random state of the boosted model.
+    rule_column : int, default=-1
+        Feature column holding the rule grade (for ``"rules"``).
+
+    Returns
+    -------
+    estimator
+        Unfitted, with ``classes=(1, 2, 3, 4)``.
+    """
+    if name == "boosted":
+        return CumulativeBoostedClassifier(random_state=seed)
+    if name == "logistic-at":
+        return OrdinalLogistic("at")
+    if name == "logistic-it":
+        return OrdinalLogistic("it")
+    if name == "nominal":
+        return NominalLogistic()
+    if name == "rules":
+        return RulesOnly(column=rule_column)
+    if name == "always-good":
+        return AlwaysGood()
+    raise ValueError(
+        f"unknown estimator {name!r}; choose boosted, logistic-at, logistic-it or nominal"
+    )
