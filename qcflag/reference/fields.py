@@ -392,7 +392,11 @@ def climatology_at(
     inside = np.isfinite(d) & (d <= zstd[-1])
     dd = np.where(inside, d, zstd[0])
     k = np.clip(np.searchsorted(zstd, dd, side="right") - 1, 0, zstd.size - 2)
-    w = (dd - zstd[k]) / (zstd[k + 1] - zstd[k])
+    dz = zstd[k + 1] - zstd[k]
+    w = (dd - zstd[k]) / dz
+    # snap to a standard depth within a micrometre, so float rounding of the pressure-depth
+    # conversion cannot lose the deepest valid level to its missing neighbour
+    w = np.where(w * dz < 1e-6, 0.0, np.where((1.0 - w) * dz < 1e-6, 1.0, w))
     upper = cols[idx, :, k]  # (n_levels, n_fields)
     lower = cols[idx, :, k + 1]
     wcol = w[:, None]
