@@ -305,10 +305,10 @@ def test_known_places():
     assert seafloor_depth(40.0, 325.0) == pytest.approx(d[2])
     # common knowledge: the western Pacific warm pool (0N 160E) is warmer than 28 degC at
     # the surface; water at 4000 m is colder than 3 degC in the open ocean, while the
-    # eastern Mediterranean (34N 22E) is warmer than 12 degC at 2500 m
+    # Ionian Sea (36N 18E) is warmer than 12 degC at 2500 m
     warm = climatology_at(0.0, 160.0, 0.0)
     assert warm.t_mean[0] > 28.0
-    deep = climatology_at([40.0, 15.0, -35.0, 34.0], [-35.0, -150.0, 100.0, 22.0],
+    deep = climatology_at([40.0, 15.0, -35.0, 36.0], [-35.0, -150.0, 100.0, 18.0],
                           _pressure_at_depth([4000.0, 4000.0, 4000.0, 2500.0], 0.0)).t_mean
     assert (deep[:3] < 3.0).all() and deep[3] > 12.0
 
