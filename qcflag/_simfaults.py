@@ -277,8 +277,8 @@ def value_faults(
     n_cru = int(cruises.max()) + 1 if cruises.size else 0
     drifting = np.flatnonzero(rng.random(n_cru) < rates["drift"])
     d_var_s = rng.random(n_cru) < 0.7
-    d_size = np.where(d_var_s, _loguniform(rng, 0.01, 0.8, n_cru),
-                      _loguniform(rng, 0.005, 1.5, n_cru)) * rng.choice([-1.0, 1.0], n_cru)
+    d_size = np.where(d_var_s, _loguniform(rng, 0.005, 0.2, n_cru),
+                      _loguniform(rng, 0.003, 0.2, n_cru)) * rng.choice([-1.0, 1.0], n_cru)
     if drifting.size:
         ids = book.new_events(drifting.size, "drift")
         ev_of_cruise = np.full(n_cru, -1, dtype=np.int64)

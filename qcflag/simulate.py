@@ -191,7 +191,7 @@ def default_fault_rates() -> dict[str, float]:
         "spike_pair": 0.10,
         "thermal_lag": 0.20,
         "offset": 0.04,
-        "drift": 0.30,
+        "drift": 0.25,
         "stuck": 0.03,
         "pressure_reversal": 0.06,
         "salinity_hook": 0.25,
@@ -325,23 +325,104 @@ def _interior(p: NDArray[np.float64], lat: NDArray[np.float64]
     return t, s
 
 
+_STD_DEPTHS = np.array([0.0, 10, 20, 30, 50, 75, 100, 150, 200, 300, 400, 600, 800, 1000, 1200,
+                        1500, 2000, 3000, 4000, 5000, 6500])
+
+
+def _interior_columns(lat: NDArray[np.float64], lon: NDArray[np.float64]
+                      ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """Interior T and S columns at each position on standard depths, statically stable.
+
+    The packaged annual climatology (:mod:`qcflag.reference`) where it has data; below the
+    deepest climatological level the analytic interior's shape continues from the last value;
+    the analytic interior alone where there is no climatology. Each column is then made
+    statically stable (potential density, referenced to the mid-point of each pair of
+    standard depths, increases by at least 1e-5 kg/m3 per metre) by raising the deeper
+    salinity where needed: the annual mean of a coarse climatology interpolated to one
+    position is not guaranteed to be stable, and clean simulated profiles must be.
+    """
+    import gsw
+
+    depth = _STD_DEPTHS
+    p_std = depth * 1.01  # pressure ~ 1.01 x depth (common practice approximation)
+    n = lat.size
+    t_an, s_an = _interior(np.broadcast_to(p_std, (n, depth.size)), lat[:, None])
+    t, s = t_an.copy(), s_an.copy()
+    try:
+        from qcflag.reference import climatology_columns
+
+        cols = climatology_columns(lat, lon)
+        ct_, cs_ = cols.t_mean, cols.s_mean
+        cdepth = cols.depth
+    except (ImportError, QCFlagError, OSError):
+        ct_ = cs_ = None
+        cdepth = depth
+    if ct_ is not None:
+        k = np.searchsorted(depth, cdepth)  # climatology depths are a subset of ours
+        ct = np.full((n, depth.size), np.nan)
+        cs = np.full((n, depth.size), np.nan)
+        ok_k = (k < depth.size)
+        ok_k[ok_k] &= depth[k[ok_k]] == cdepth[ok_k]
+        ct[:, k[ok_k]], cs[:, k[ok_k]] = ct_[:, ok_k], cs_[:, ok_k]
+        valid = np.isfinite(ct) & np.isfinite(cs)
+        # last valid standard depth of each column (columns are valid from the top down)
+        run = np.cumprod(valid, axis=1).astype(bool)
+        last = run.sum(axis=1) - 1
+        has = last >= 0
+        rows = np.flatnonzero(has)
+        lk = last[has]
+        dt = ct[rows, lk] - t_an[rows, lk]
+        ds = cs[rows, lk] - s_an[rows, lk]
+        t[rows] = np.where(run[rows], ct[rows], t_an[rows] + dt[:, None])
+        s[rows] = np.where(run[rows], cs[rows], s_an[rows] + ds[:, None])
+    lat_b = np.broadcast_to(lat[:, None], t.shape)
+    lon_b = np.broadcast_to(lon[:, None], t.shape)
+    for k in range(1, depth.size):  # loop over the 21 standard depths, vectorised over columns
+        pref = 0.5 * (p_std[k - 1] + p_std[k])
+        for _ in range(3):
+            sa_a = gsw.SA_from_SP(s[:, k - 1], p_std[k - 1], lon_b[:, k], lat_b[:, k])
+            sa_b = gsw.SA_from_SP(s[:, k], p_std[k], lon_b[:, k], lat_b[:, k])
+            rho_a = gsw.rho(sa_a, gsw.CT_from_t(sa_a, t[:, k - 1], p_std[k - 1]), pref)
+            rho_b = gsw.rho(sa_b, gsw.CT_from_t(sa_b, t[:, k], p_std[k]), pref)
+            need = rho_a + 1e-5 * (depth[k] - depth[k - 1]) - rho_b
+            s[:, k] += np.where(need > 0.0, need / 0.74 + 1e-4, 0.0)
+    return depth, t, s
+
+
+def _interior_at(depth_std: NDArray[np.float64], t_col: NDArray[np.float64],
+                 s_col: NDArray[np.float64], profile_index: NDArray[np.int64],
+                 p: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Interpolate interior columns linearly in depth to levels."""
+    d = np.clip(p / 1.01, depth_std[0], depth_std[-1])
+    k = np.clip(np.searchsorted(depth_std, d, side="right") - 1, 0, depth_std.size - 2)
+    w = (d - depth_std[k]) / (depth_std[k + 1] - depth_std[k])
+    t = t_col[profile_index, k] * (1.0 - w) + t_col[profile_index, k + 1] * w
+    s = s_col[profile_index, k] * (1.0 - w) + s_col[profile_index, k + 1] * w
+    return t, s
+
+
 def background(
     pressure: ArrayLikeF,
     latitude: ArrayLikeF,
+    longitude: ArrayLikeF,
     day_of_year: ArrayLikeF,
     *,
+    profile_index: ArrayLikeF | None = None,
     heave: ArrayLikeF | None = None,
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Noise-free seasonal background temperature and salinity of the invented region.
+    """Noise-free seasonal background temperature and salinity at levels.
 
     Parameters
     ----------
-    pressure : array-like of float
+    pressure : array-like of float, shape (n_levels,)
         Sea pressure, dbar.
-    latitude : array-like of float
-        Latitude, degrees north (broadcast against `pressure`).
+    latitude, longitude : array-like of float
+        Position, degrees north / east: one per profile with `profile_index`, else scalars
+        or one per level.
     day_of_year : array-like of float
-        Day of the year, 0-365 (broadcast against `pressure`).
+        Day of the year, 0-365, per level (or scalar).
+    profile_index : array-like of int, shape (n_levels,), optional
+        Profile of each level (index into `latitude`/`longitude`).
     heave : array-like of float, optional
         Vertical displacement of the water column, dbar (positive down); the background is
         evaluated at ``pressure - heave``.
@@ -355,30 +436,36 @@ def background(
 
     Notes
     -----
-    The interior is analytic (shaped like the annual north-east Atlantic: a warm, salty
-    Mediterranean outflow layer near 1000 dbar); on top sits a homogeneous mixed layer whose
-    depth (about 120 dbar in late winter, 25 dbar in late summer) and warming (up to 6 degC)
-    follow the annual cycle, joined to the interior by a thermocline whose e-folding scale
-    shrinks from 30 to 8 dbar in summer. Invented but physically plausible: statically
-    stable everywhere (tested with TEOS-10).
+    The interior is the packaged annual climatology at the position (see
+    :func:`_interior_columns`; an analytic north-east-Atlantic profile where there is none),
+    made statically stable. On top sits a homogeneous mixed layer whose depth (about 120
+    dbar in late winter, 25 dbar in late summer) follows the annual cycle, warmed by up to
+    5 degC and freshened by up to 0.08 in summer, joined to the interior by a thermocline
+    whose e-folding scale shrinks from 30 to 8 dbar in summer. Invented but physically
+    plausible: statically stable everywhere (tested with TEOS-10).
     """
-    p = np.asarray(pressure, dtype=np.float64)
+    p = np.atleast_1d(np.asarray(pressure, dtype=np.float64))
     if heave is not None:
         p = np.maximum(p - np.asarray(heave, dtype=np.float64), 0.0)
-    lat = np.asarray(latitude, dtype=np.float64)
-    doy = np.asarray(day_of_year, dtype=np.float64)
+    lat = np.atleast_1d(np.asarray(latitude, dtype=np.float64))
+    lon = np.atleast_1d(np.asarray(longitude, dtype=np.float64))
+    if profile_index is None:
+        lat, lon = np.broadcast_to(lat, p.shape), np.broadcast_to(lon, p.shape)
+        idx = np.arange(p.size)
+    else:
+        idx = np.asarray(profile_index, dtype=np.int64)
+    doy = np.broadcast_to(np.asarray(day_of_year, dtype=np.float64), p.shape)
+    depth_std, t_col, s_col = _interior_columns(np.ascontiguousarray(lat, dtype=np.float64),
+                                                np.ascontiguousarray(lon, dtype=np.float64))
     two_pi = 2.0 * math.pi
     winter = 0.5 * (1.0 + np.cos(two_pi * (doy - 50.0) / 365.25))     # 1 in late February
     summer = 0.5 * (1.0 + np.cos(two_pi * (doy - 225.0) / 365.25))    # 1 in mid August
     mld = 25.0 + 95.0 * winter
-    warming = 6.0 * summer ** 1.5
+    warming = 5.0 * summer ** 1.5
     scale = 8.0 + 22.0 * (1.0 - summer)
-    t_int, s_int = _interior(np.maximum(p, mld), lat)
-    below = np.maximum(p - mld, 0.0)
-    g = np.exp(-below / scale)
-    t = t_int + warming * g
-    s = s_int - 0.08 * summer * g
-    return t, s
+    t_int, s_int = _interior_at(depth_std, t_col, s_col, idx, np.maximum(p, mld))
+    g = np.exp(-np.maximum(p - mld, 0.0) / scale)
+    return t_int + warming * g, s_int - 0.08 * summer * g
 
 
 ArrayLikeF = Any  # documented as array-like of float
@@ -440,7 +527,8 @@ def _layout(n_cruises: int, cfg: SimulationConfig, rng: np.random.Generator) -> 
     hours = np.where(is_ctd, hours, n_c * 7.0 + 24.0 * days_after)
     time = base + ((start_days[cruise] * 86400.0 + hours * 3600.0).round()).astype(
         "timedelta64[s]")
-    yy = (cfg.start_year + (start_days // 365.25).astype(int)) % 100
+    yy = ((base + (start_days * 86400.0).round().astype("timedelta64[s]"))
+          .astype("datetime64[Y]").astype(np.int64) + 1970) % 100
     seq = np.arange(n_cruises) + 1
     cruise_id = np.array([f"SMP{y:02d}-{s:03d}" for y, s in zip(yy, seq, strict=True)])
     codes = np.array([ln.code for ln in STATION_LINES])[line]
@@ -613,10 +701,10 @@ def simulate_archive(
 
     # background + correlated fine structure + instrument noise
     doy = _day_of_year(prof["time"])[pi]
-    lat = prof["latitude"].to_numpy()[pi]
     fs = cfg.fine_structure
     heave = fs * 1.5 * _ar1(rng, offsets, p, 10.0, 40.0)
-    t, s = background(p, lat, doy, heave=heave)
+    t, s = background(p, prof["latitude"].to_numpy(), prof["longitude"].to_numpy(), doy,
+                      profile_index=pi, heave=heave)
     intr = fs * _ar1(rng, offsets, p, 1.0, 6.0)
     amp = 0.004 + 0.025 * np.exp(-(((p - 1000.0) / 400.0) ** 2))  # interleaving near the MOW
     t = t + amp * intr
