@@ -757,111 +757,6 @@ def simulate_archive(
 
 
 # ------------------------------------------------------------------------------- writing
-_CSV_FLOAT_COLUMNS = ("latitude", "longitude", "pressure", "temperature", "salinity")
-
-
-def _csv_frame(batch: ProfileBatch) -> pd.DataFrame:
-    """Build the canonical CSV table of a batch (private writer used until ``qcflag.io.write``)."""
-    pi = batch.profile_index
-    prof = batch.profiles
-    times = pd.DatetimeIndex(prof["time"]).strftime("%Y-%m-%dT%H:%M:%SZ").to_numpy()
-    cols: dict[str, Any] = {
-        "profile_id": prof["profile_id"].to_numpy()[pi],
-        "cruise": prof["cruise"].to_numpy()[pi],
-        "time": times[pi],
-        "latitude": prof["latitude"].to_numpy()[pi],
-        "longitude": prof["longitude"].to_numpy()[pi],
-        "pressure": batch.pressure,
-        "temperature": batch.temperature,
-        "salinity": batch.salinity,
-        "platform": prof["platform"].to_numpy()[pi],
-    }
-    for var in ("temperature", "salinity", "pressure"):
-        if var in batch.flags:
-            codes = batch.flags[var].astype(np.int64)
-            cols[f"{var}_flag"] = pd.array(np.where(codes < 0, 0, codes), dtype="Int64")
-            cols[f"{var}_flag"][codes < 0] = pd.NA
-    for name in ("operator", "instrument", "station"):
-        if name in prof.columns:
-            cols[name] = prof[name].to_numpy()[pi]
-    df = pd.DataFrame(cols)
-    if batch.extra is not None:
-        df = pd.concat([df, batch.extra.reset_index(drop=True)], axis=1)
-    return df
-
-
-def _write_csv(batch: ProfileBatch, path: Path, *, overwrite: bool) -> None:
-    from qcflag.io.atomic import atomic_output
-
-    df = _csv_frame(batch)
-    with atomic_output(path, overwrite=overwrite) as tmp:
-        df.to_csv(tmp, index=False, lineterminator="\n", na_rep="")
-
-
-def _write_nc(batch: ProfileBatch, path: Path, *, overwrite: bool) -> None:
-    """CF DSG contiguous-ragged profile file (private writer used until ``qcflag.io.write``)."""
-    import xarray as xr
-
-    from qcflag.io.atomic import atomic_output
-    from qcflag.schemes import get_scheme
-
-    sch = get_scheme(batch.scheme)
-    prof = batch.profiles
-    ds = xr.Dataset(
-        {
-            "profile_id": ("profile", prof["profile_id"].astype(str).to_numpy(),
-                           {"cf_role": "profile_id"}),
-            "cruise": ("profile", prof["cruise"].astype(str).to_numpy()),
-            "platform": ("profile", prof["platform"].astype(str).to_numpy()),
-            "time": ("profile", prof["time"].to_numpy().astype("datetime64[ns]"),
-                     {"standard_name": "time"}),
-            "latitude": ("profile", prof["latitude"].to_numpy(),
-                         {"standard_name": "latitude", "units": "degrees_north"}),
-            "longitude": ("profile", prof["longitude"].to_numpy(),
-                          {"standard_name": "longitude", "units": "degrees_east"}),
-            "row_size": ("profile", batch.counts.astype(np.int32),
-                         {"sample_dimension": "obs", "long_name": "number of levels"}),
-            "pressure": ("obs", batch.pressure,
-                         {"standard_name": "sea_water_pressure", "units": "dbar",
-                          "positive": "down"}),
-            "temperature": ("obs", batch.temperature,
-                            {"standard_name": "sea_water_temperature", "units": "degree_C"}),
-            "salinity": ("obs", batch.salinity,
-                         {"standard_name": "sea_water_practical_salinity", "units": "1"}),
-        },
-        attrs={"featureType": "profile", "Conventions": "CF-1.11",
-               "title": f"{PROGRAMME} (invented scenario)",
-               "comment": "Simulated data with known truth; not real observations."},
-    )
-    for name in ("operator", "instrument", "station"):
-        if name in prof.columns:
-            ds[name] = ("profile", prof[name].astype(str).to_numpy())
-    for var, codes in batch.flags.items():
-        ds[f"{var}_flag"] = ("obs", codes.astype(np.int8), {
-            "standard_name": ds[var].attrs["standard_name"] + " status_flag",
-            "flag_values": sch.values, "flag_meanings": " ".join(sch.meanings),
-            "_FillValue": np.int8(-1), "conventions": "Argo reference table 2"})
-        ds[var].attrs["ancillary_variables"] = f"{var}_flag"
-    if batch.extra is not None:
-        for col in batch.extra.columns:
-            vals = batch.extra[col].to_numpy()
-            if vals.dtype == bool:
-                vals = vals.astype(np.int8)
-            elif vals.dtype == object:
-                vals = vals.astype(str)
-            ds[col] = ("obs", vals, {"comment": "simulation truth"})
-    with atomic_output(path, overwrite=overwrite) as tmp:
-        ds.to_netcdf(tmp, engine="netcdf4")
-
-
-def _writer() -> Any:
-    try:
-        from qcflag.io import write  # type: ignore[attr-defined]
-    except ImportError:
-        return None
-    return write
-
-
 def write_scenario(
     out_dir: str | Path,
     *,
@@ -876,7 +771,9 @@ def write_scenario(
     Parameters
     ----------
     out_dir : path-like
-        Output folder (created if needed).
+        Output folder (created if needed). Files are written atomically through
+        :func:`qcflag.io.write` (canonical CSV with the truth columns after the standard
+        ones; CF DSG NetCDF).
     n_cruises, seed, config
         As :func:`simulate_archive`.
     formats : sequence of {"csv", "nc"}, default=("csv", "nc")
@@ -913,18 +810,14 @@ def write_scenario(
         check_writable(path, overwrite=overwrite)
     out.mkdir(parents=True, exist_ok=True)
     cruise_col = batch.profiles["cruise"].to_numpy()
-    write = _writer()
+    from qcflag.io.files import write
+
     written: list[Path] = []
     for c in cruises:  # loop over cruises
         sub = batch.select(cruise_col == c)
         for f in fmts:
             path = out / f"{c}.{f}"
-            if write is not None:
-                write(sub, path, overwrite=overwrite)
-            elif f == "csv":
-                _write_csv(sub, path, overwrite=overwrite)
-            else:
-                _write_nc(sub, path, overwrite=overwrite)
+            write(sub, path, overwrite=overwrite)
             written.append(path)
     info = {
         "programme": PROGRAMME,
