@@ -1,0 +1,921 @@
+"""CF discrete-sampling-geometry profile NetCDF: reader (four layouts) and writer.
+
+Reader
+------
+:func:`from_dataset` finds variables by ``standard_name`` (falling back to common names),
+the profile identifier by ``cf_role = "profile_id"``, manual flags through
+``ancillary_variables``, and the layout from the file itself
+(../shared/reference/formats-and-conventions.md section 2, after CF-1.13 chapter 9):
+
+* contiguous ragged: a count variable with ``sample_dimension``;
+* indexed ragged: an index variable with ``instance_dimension`` (levels grouped by profile,
+  file order kept within each);
+* incomplete / orthogonal multidimensional: data ``(profile, level)`` with 2-D or 1-D
+  pressure; padding levels (pressure, temperature and salinity all missing) are dropped;
+* a single profile without an instance dimension.
+
+Argo-format files (``N_PROF`` x ``N_LEVELS``) are recognised and read by
+:mod:`qcflag.io.argo`. Profiles left with no level are dropped
+(``batch.attrs["dropped_profiles"]``); a file with no level at all is refused.
+
+Writer
+------
+:func:`to_dataset` / :func:`write_netcdf` produce CF-1.13 contiguous ragged arrays: dimensions
+``profile`` and ``obs``; ``row_size(profile)`` with ``sample_dimension = "obs"``; manual flags
+as ``byte <var>_qc(obs)`` with ``flag_values``/``flag_meanings`` of the batch scheme and
+``_FillValue = -128`` where a level carries no flag; a ``history`` line per CF section 2.6.
+Values are written as doubles so that CSV -> NetCDF -> CSV is exact.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import sys
+from collections.abc import Mapping
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+
+from qcflag._version import __version__
+from qcflag.exceptions import InputFileError, QCFlagError, UnitsError
+from qcflag.io.atomic import atomic_output
+from qcflag.io.common import (
+    AddedColumn,
+    depth_to_pressure,
+    normalise_units,
+    time_resolution,
+    to_ns,
+)
+from qcflag.profiles import LEVEL_VARIABLES, META_COLUMNS, ProfileBatch
+from qcflag.schemes import NO_FLAG, SCHEMES, get_scheme, parse_codes
+
+if TYPE_CHECKING:
+    import xarray as xr
+    from numpy.typing import NDArray
+
+__all__ = ["from_dataset", "read_netcdf", "to_dataset", "write_netcdf"]
+
+PROFILE_DIM = "profile"
+"""Instance dimension written by :func:`to_dataset`."""
+OBS_DIM = "obs"
+"""Sample (element) dimension written by :func:`to_dataset`."""
+FLAG_FILL = np.int8(-128)
+"""``_FillValue`` of byte flag variables: the level carries no flag."""
+
+_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
+
+_STANDARD = {
+    "pressure": ("sea_water_pressure", "sea_water_pressure_due_to_sea_water"),
+    "depth": ("depth",),
+    "temperature": ("sea_water_temperature",),
+    "salinity": ("sea_water_practical_salinity", "sea_water_salinity"),
+    "latitude": ("latitude",),
+    "longitude": ("longitude",),
+    "time": ("time",),
+}
+_NAMES = {
+    "pressure": ("pressure", "pres", "ctdprs", "prs"),
+    "depth": ("depth", "z"),
+    "temperature": ("temperature", "temp", "ctdtmp", "t90"),
+    "salinity": ("salinity", "psal", "ctdsal", "sal"),
+    "latitude": ("latitude", "lat"),
+    "longitude": ("longitude", "lon"),
+    "time": ("time",),
+    "cruise": ("cruise", "cruise_id", "expocode", "cruise_name"),
+    "platform": ("platform", "platform_name", "platform_id", "ship"),
+}
+_GLOBAL_KEEP = ("title", "institution", "source", "references", "comment", "project",
+                "summary", "history")
+
+
+# --------------------------------------------------------------------------- reading
+def _check_magic(path: Path) -> None:
+    with path.open("rb") as fh:
+        head = fh.read(8)
+    if not head:
+        raise InputFileError(path, "empty file", "give a NetCDF profile file")
+    if not any(head.startswith(m) for m in _MAGIC):
+        shown = head[:8].decode("ascii", errors="replace")
+        shown = "".join(c if c.isprintable() else "?" for c in shown)
+        raise InputFileError(path, f"not a NetCDF file (it starts with {shown!r})",
+                             "if it is CSV, give it a .csv name; else fetch the file again")
+
+
+def read_netcdf(path: str | os.PathLike[str], *, scheme: str | None = None) -> ProfileBatch:
+    """Read a CF DSG profile or Argo-format NetCDF file.
+
+    Parameters
+    ----------
+    path : path-like
+        The file.
+    scheme : str, optional
+        Flag scale of the manual flags when the file's ``flag_meanings`` do not name one of
+        :data:`qcflag.schemes.SCHEMES` (default ``"argo"``).
+
+    Returns
+    -------
+    ProfileBatch
+
+    Raises
+    ------
+    InputFileError
+        If the file is not NetCDF, is truncated or corrupt, or lacks the variables.
+    UnitsError
+        If units are unknown or plainly contradicted by the values.
+    """
+    import xarray as xr
+
+    path = Path(path)
+    if path.is_dir():
+        raise IsADirectoryError(21, "is a directory", str(path))
+    _check_magic(path)
+    try:
+        with xr.open_dataset(path, engine="netcdf4", decode_cf=False, mask_and_scale=False,
+                             decode_times=False, cache=False) as ds:
+            ds = ds.load()
+    except (OSError, RuntimeError, ValueError, KeyError, IndexError, TypeError,
+            UnicodeDecodeError, OverflowError, AttributeError) as exc:
+        msg = str(exc).strip().splitlines()
+        why = msg[0][:160] if msg else type(exc).__name__
+        raise InputFileError(path, f"cannot read the NetCDF file ({why})",
+                             "it is probably truncated or corrupt; fetch it again") from None
+    return from_dataset(ds, scheme=scheme, source=str(path))
+
+
+def _attr(var: Any, key: str) -> Any:
+    val = var.attrs.get(key)
+    if val is None:
+        val = var.encoding.get(key)
+    return val
+
+
+def _text(val: Any) -> str:
+    if isinstance(val, bytes):
+        return val.decode("utf-8", errors="replace")
+    if isinstance(val, np.ndarray):
+        return " ".join(_text(v) for v in val.ravel())
+    return "" if val is None else str(val)
+
+
+def _floats(var: Any, source: str) -> NDArray[np.float64]:
+    """Values of a numeric variable as float64 with fill/missing values as NaN."""
+    raw = np.asarray(var.values)
+    if raw.dtype.kind not in "fiub":
+        raise InputFileError(source, f"variable {var.name!r} is not numeric ({raw.dtype})",
+                             "store it as a number")
+    arr = raw.astype(np.float64)
+    for key in ("_FillValue", "missing_value"):
+        fill = var.attrs.get(key)
+        if fill is None:
+            continue
+        for f in np.atleast_1d(np.asarray(fill, dtype=np.float64)):
+            if np.isnan(f):
+                continue
+            tol = abs(f) * 1e-6 if raw.dtype.kind == "f" else 0.0
+            arr[np.abs(arr - f) <= tol] = np.nan
+    scale = var.attrs.get("scale_factor")
+    offset = var.attrs.get("add_offset")
+    if scale is not None:
+        arr = arr * float(np.asarray(scale).ravel()[0])
+    if offset is not None:
+        arr = arr + float(np.asarray(offset).ravel()[0])
+    return arr
+
+
+def _strings(var: Any, ndim: int) -> NDArray[np.object_]:
+    """Text values with `ndim` dimensions (char arrays joined along their last dimension)."""
+    raw = np.asarray(var.values)
+    if raw.dtype.kind == "S":
+        if raw.ndim == ndim + 1:
+            width = raw.shape[-1]
+            raw = np.ascontiguousarray(raw).view(f"S{max(width, 1)}").reshape(raw.shape[:-1])
+        out = np.char.decode(raw, "utf-8", errors="replace").astype(object)
+    elif raw.dtype.kind in "OU":
+        out = raw.astype(object)
+        out = np.array([v.decode("utf-8", "replace") if isinstance(v, bytes) else str(v)
+                        for v in out.ravel()], dtype=object).reshape(raw.shape)
+    elif raw.dtype.kind in "iu":
+        out = raw.astype(str).astype(object)
+    elif raw.dtype.kind == "f":
+        vals = _floats(var, "")
+        out = np.where(np.isfinite(vals) & (vals == np.round(vals)),
+                       np.nan_to_num(vals).astype(np.int64).astype(str),
+                       vals.astype(str)).astype(object)
+        out[~np.isfinite(vals)] = ""
+    else:
+        out = raw.astype(str).astype(object)
+    flat = np.array([s.strip("\x00 ") for s in out.ravel()], dtype=object)
+    return flat.reshape(out.shape)
+
+
+def _times(var: Any, source: str) -> NDArray[np.datetime64]:
+    import xarray as xr
+
+    raw = np.asarray(var.values)
+    if raw.dtype.kind == "M":
+        return raw.astype("datetime64[ns]")
+    units = _attr(var, "units")
+    if units is None or "since" not in str(units):
+        raise UnitsError(source, f"time variable {var.name!r} has units {units!r}",
+                         "give CF time units such as 'days since 1950-01-01 00:00:00'")
+    attrs = {k: v for k, v in var.attrs.items()
+             if k in ("units", "calendar", "_FillValue", "missing_value")}
+    try:
+        dec = xr.decode_cf(xr.Dataset({"t": (("n",), raw.ravel(), attrs)}))["t"].values
+    except (ValueError, TypeError, OverflowError) as exc:
+        raise UnitsError(source, f"time variable {var.name!r} cannot be decoded ({exc})",
+                         "use a standard calendar and CF time units") from None
+    if dec.dtype.kind != "M":
+        raise UnitsError(source, f"time variable {var.name!r} uses a non-standard calendar",
+                         "convert times to the standard (Gregorian) calendar")
+    return dec.astype("datetime64[ns]").reshape(raw.shape)
+
+
+def _find(ds: Any, key: str, exclude: set[str]) -> str | None:
+    """Name of the variable holding `key`, by standard_name, then by common names."""
+    for sn in _STANDARD.get(key, ()):
+        for name, var in ds.variables.items():
+            if name in exclude:
+                continue
+            std = _text(var.attrs.get("standard_name")).strip()
+            if std == sn and "adjusted" not in str(name).lower():
+                return str(name)
+    lower = {str(n).lower(): str(n) for n in ds.variables if n not in exclude}
+    for alias in _NAMES.get(key, ()):
+        if alias in lower:
+            var = ds[lower[alias]]
+            if "status_flag" in _text(var.attrs.get("standard_name")):
+                continue
+            return lower[alias]
+    return None
+
+
+def _flag_rank(name: str, var: Any) -> int:
+    std = _text(var.attrs.get("standard_name")).strip()
+    if name.endswith("_flag_auto") or "_flag_auto" in name:
+        return 0
+    if std == "quality_flag":
+        return 4
+    if std == "aggregate_quality_flag":
+        return 3
+    if std == "status_flag" or std.endswith(" status_flag"):
+        return 2
+    if not std and (name.lower().endswith(("_qc", "_flag", "_flag_w"))
+                    or "flag_values" in var.attrs):
+        return 1
+    return 0
+
+
+def _flag_var(ds: Any, data_name: str) -> str | None:
+    names = _text(ds[data_name].attrs.get("ancillary_variables")).split()
+    cands = [(n, _flag_rank(n, ds[n])) for n in names if n in ds.variables]
+    cands = [c for c in cands if c[1] > 0]
+    if not cands:
+        return None
+    return max(cands, key=lambda c: c[1])[0]
+
+
+def _detect_scheme(ds: Any, flag_names: list[str], source: str) -> str | None:
+    found: dict[str, str] = {}
+    for name in flag_names:
+        var = ds[name]
+        meanings = _text(var.attrs.get("flag_meanings")).split()
+        if not meanings:
+            continue
+        values = var.attrs.get("flag_values")
+        for sch in SCHEMES.values():
+            if sorted(meanings) != sorted(sch.meanings):
+                continue
+            if values is not None:
+                vals = np.atleast_1d(np.asarray(values))
+                if vals.dtype.kind in "SU":
+                    vals = np.array([ord(_text(v)[:1] or " ") if not _text(v).isdigit()
+                                     else int(_text(v)) for v in vals])
+                if len(vals) != len(meanings) or dict(
+                    zip(meanings, vals.astype(int).tolist(), strict=True)
+                ) != dict(zip(sch.meanings, sch.values.astype(int).tolist(), strict=True)):
+                    continue
+            found[name] = sch.name
+            break
+    schemes = set(found.values())
+    if len(schemes) > 1:
+        raise InputFileError(source, f"flag variables use different flag scales {found}",
+                             "convert the flags to one scale")
+    return schemes.pop() if schemes else None
+
+
+def _flag_codes(var: Any, scheme: str, source: str) -> NDArray[np.int8]:
+    raw = np.asarray(var.values)
+    where = f"{source}: variable {var.name!r}"
+    if raw.dtype.kind == "S":
+        return _char_codes(raw, scheme, where)
+    if raw.dtype.kind in "iu":
+        arr = raw.astype(np.int64)
+        fill = _attr(var, "_FillValue")
+        if fill is not None:
+            arr = np.where(arr == int(np.asarray(fill).ravel()[0]), NO_FLAG, arr)
+        miss = var.attrs.get("missing_value")
+        if miss is not None:
+            arr = np.where(np.isin(arr, np.atleast_1d(np.asarray(miss)).astype(np.int64)),
+                           NO_FLAG, arr)
+        return _validate_codes(arr, scheme, where)
+    if raw.dtype.kind == "f":
+        arr = _floats(var, source)
+        if (np.isfinite(arr) & (arr != np.round(arr))).any():
+            raise InputFileError(source, f"variable {var.name!r} holds non-integer flags",
+                                 "store flags as byte codes")
+        return _validate_codes(np.where(np.isfinite(arr), arr, NO_FLAG).astype(np.int64),
+                               scheme, where)
+    return parse_codes(_strings(var, raw.ndim).astype(str), scheme, where=where)
+
+
+def _validate_codes(arr: NDArray[np.int64], scheme: str, where: str) -> NDArray[np.int8]:
+    bad = (arr < -1) | (arr > 127)
+    if bad.any():
+        valid = " ".join(c.code for c in get_scheme(scheme).codes)
+        raise QCFlagError(f"{where}: flag code {int(arr[bad][0])} is not in the "
+                          f"{get_scheme(scheme).title} scale (valid: {valid}); "
+                          "give the right --scheme")
+    out = arr.astype(np.int8)
+    from qcflag.schemes import decode
+
+    decode(out, scheme, where=where)
+    return out
+
+
+def _char_codes(raw: NDArray[np.bytes_], scheme: str, where: str) -> NDArray[np.int8]:
+    """Convert one-character flags (``b"1"``, ``b" "``) to stored codes, vectorised."""
+    b = np.ascontiguousarray(raw, dtype="S1").view(np.uint8).astype(np.int64)
+    out = np.where((b == 32) | (b == 0), NO_FLAG, np.where((b >= 48) & (b <= 57), b - 48, b))
+    return _validate_codes(out, scheme, where)
+
+
+def from_dataset(
+    ds: xr.Dataset, *, scheme: str | None = None, source: str | None = None
+) -> ProfileBatch:
+    """Build a batch from an in-memory dataset (CF DSG profiles or Argo format).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Decoded or raw (``decode_cf=False``) dataset; it is not modified.
+    scheme : str, optional
+        Flag scale used when the flag metadata names none (default ``"argo"``).
+    source : str, optional
+        Name of the file, for messages and ``batch.attrs["sources"]``.
+
+    Returns
+    -------
+    ProfileBatch
+
+    Raises
+    ------
+    InputFileError
+        Missing variables, inconsistent layout, no levels.
+    UnitsError
+        Unknown or contradicted units.
+    """
+    src = source or "<dataset>"
+    if "N_PROF" in ds.dims and ("DATA_MODE" in ds.variables or "PLATFORM_NUMBER" in ds.variables
+                                or _text(ds.attrs.get("Conventions")).startswith("Argo")):
+        from qcflag.io.argo import from_argo
+
+        return from_argo(ds, source=src)
+    try:
+        return _from_cf(ds, scheme=scheme, source=src)
+    except QCFlagError:
+        raise
+    except (ValueError, IndexError, KeyError, TypeError) as exc:
+        raise InputFileError(src, f"inconsistent profile layout ({str(exc)[:160]})",
+                             "check the CF DSG count/index variables and dimensions") from None
+
+
+def _from_cf(ds: Any, *, scheme: str | None, source: str) -> ProfileBatch:
+    used: set[str] = set()
+    names: dict[str, str | None] = {}
+    for key in ("temperature", "salinity", "pressure", "latitude", "longitude", "time"):
+        names[key] = _find(ds, key, used)
+        if names[key]:
+            used.add(str(names[key]))
+    names["depth"] = None
+    if names["pressure"] is None:
+        names["depth"] = _find(ds, "depth", used)
+        if names["depth"]:
+            used.add(str(names["depth"]))
+    for key, what in (("temperature", "sea_water_temperature"),
+                      ("salinity", "sea_water_practical_salinity")):
+        if names[key] is None:
+            raise InputFileError(source, f"no {key} variable (standard_name {what})",
+                                 "add standard_name attributes to the data variables")
+    if names["pressure"] is None and names["depth"] is None:
+        raise InputFileError(source, "no pressure variable (standard_name sea_water_pressure) "
+                             "or depth", "add standard_name attributes")
+    zname = str(names["pressure"] or names["depth"])
+    tvar = ds[names["temperature"]]
+    count = next((str(n) for n, v in ds.variables.items() if "sample_dimension" in v.attrs),
+                 None)
+    index = next((str(n) for n, v in ds.variables.items() if "instance_dimension" in v.attrs),
+                 None)
+    pid = next((str(n) for n, v in ds.variables.items()
+                if _text(v.attrs.get("cf_role")).strip() == "profile_id"), None)
+    notes: list[str] = []
+    obs_dim: str | None = None
+    full: tuple[str, ...] = ()
+    present = np.zeros((0, 0), dtype=bool)
+    order = np.zeros(0, dtype=np.int64)
+    total = 0
+    z_dim = ""
+    if count is not None:
+        layout = "contiguous"
+        inst_dim: str | None = ds[count].dims[0]
+        obs_dim = _text(ds[count].attrs["sample_dimension"]).strip()
+        counts = np.maximum(np.nan_to_num(_floats(ds[count], source)).astype(np.int64), 0)
+        n_obs = int(ds.sizes.get(obs_dim, 0))
+        total = int(counts.sum())
+        if total > n_obs:
+            raise InputFileError(source, f"count variable {count!r} sums to {total} "
+                                 f"but dimension {obs_dim!r} has {n_obs}",
+                                 "fix row_size or the sample dimension")
+        used.add(count)
+    elif index is not None:
+        layout = "indexed"
+        inst_dim = _text(ds[index].attrs["instance_dimension"]).strip()
+        obs_dim = ds[index].dims[0]
+        n_inst = int(ds.sizes.get(inst_dim, 0))
+        idx = np.nan_to_num(_floats(ds[index], source), nan=-1).astype(np.int64)
+        valid = np.flatnonzero((idx >= 0) & (idx < n_inst))
+        order = valid[np.argsort(idx[valid], kind="stable")]
+        counts = np.bincount(idx[valid], minlength=n_inst).astype(np.int64)
+        used.add(index)
+    else:
+        layout = "multidimensional"
+        anchor = pid or names["latitude"]
+        inst_dim = None
+        if anchor is not None:
+            avar = ds[anchor]
+            base = avar.dims[:-1] if avar.dtype.kind == "S" and avar.ndim >= 1 else avar.dims
+            inst_dim = base[0] if base else None
+        sample = tuple(tvar.dims)
+        if inst_dim is None:
+            if len(sample) != 1:
+                raise InputFileError(source, f"variable {tvar.name!r} has dimensions {sample} "
+                                     "but no profile dimension was found",
+                                     "add cf_role=profile_id or a count/index variable")
+            z_dim = sample[0]
+            full = (z_dim,)
+            shape2 = (1, int(ds.sizes[z_dim]))
+        else:
+            z_dims = [d for d in sample if d != inst_dim]
+            if inst_dim not in sample or len(z_dims) != 1:
+                raise InputFileError(source, f"variable {tvar.name!r} has dimensions {sample}; "
+                                     f"expected ({inst_dim!r}, level)",
+                                     "write a CF DSG profile file")
+            z_dim = z_dims[0]
+            full = (inst_dim, z_dim)
+            shape2 = (int(ds.sizes[inst_dim]), int(ds.sizes[z_dim]))
+        present = np.zeros(shape2, dtype=bool)
+
+    def grid(var: Any, fn: Any) -> NDArray[Any]:
+        vt = var.transpose(*[d for d in full if d in var.dims],
+                           *[d for d in var.dims if d not in full])
+        arr = np.asarray(fn(vt))
+        lead = tuple(d for d in vt.dims if d in full)
+        if lead == full:
+            return arr.reshape(present.shape)
+        if lead == (z_dim,):
+            return np.broadcast_to(arr.reshape(1, -1), present.shape)
+        raise InputFileError(source, f"variable {var.name!r} has dimensions {var.dims}; "
+                             f"expected {full}", "fix the file layout")
+
+    def lvl(var: Any, fn: Any) -> NDArray[Any]:
+        if obs_dim is not None:
+            if tuple(var.dims) != (obs_dim,):
+                raise InputFileError(source, f"variable {var.name!r} has dimensions "
+                                     f"{var.dims}, expected ({obs_dim!r},)", "fix the layout")
+            arr = np.asarray(fn(var))
+            return arr[:total] if layout == "contiguous" else arr[order]
+        return grid(var, fn)[present]
+
+    if layout == "multidimensional":
+        for key in ("pressure", "depth", "temperature", "salinity"):
+            if names.get(key):
+                present |= np.isfinite(grid(ds[names[key]], lambda v: _floats(v, source)))
+        counts = present.sum(axis=1).astype(np.int64)
+        if names["pressure"] and ds[names["pressure"]].dims == (z_dim,) and len(full) == 2:
+            notes.append("orthogonal multidimensional layout")
+    n_prof = counts.size
+    heads = np.concatenate([[0], np.cumsum(counts)])[:-1]
+    has = counts > 0
+
+    def floats(name: str) -> NDArray[np.float64]:
+        return lvl(ds[name], lambda v: _floats(v, source))
+
+    def per_profile(name: str | None, kind: str) -> NDArray[Any] | None:
+        if name is None:
+            return None
+        var = ds[name]
+        fn = {"str": lambda v: _strings(v, v.ndim - (1 if v.dtype.kind == "S" else 0)),
+              "time": lambda v: _times(v, source),
+              "float": lambda v: _floats(v, source)}[kind]
+        base = var.dims[:-1] if kind == "str" and var.dtype.kind == "S" and var.ndim else var.dims
+        if base == ():
+            return np.repeat(np.asarray(fn(var)).reshape(1), n_prof)
+        if inst_dim is not None and tuple(base) == (inst_dim,):
+            return np.asarray(fn(var))
+        vals = lvl(var, fn)
+        out = np.empty(n_prof, dtype=vals.dtype)
+        out[:] = np.nan if kind == "float" else (np.datetime64("NaT") if kind == "time" else "")
+        out[has] = vals[heads[has]]
+        return out
+
+    values = {k: floats(str(names[k])) for k in ("temperature", "salinity")}
+    lat = per_profile(names["latitude"], "float")
+    lon = per_profile(names["longitude"], "float")
+    times = per_profile(names["time"], "time")
+    if lat is None:
+        lat = np.full(n_prof, np.nan)
+        notes.append("no latitude variable; latitude missing")
+    if lon is None:
+        lon = np.full(n_prof, np.nan)
+        notes.append("no longitude variable; longitude missing")
+    if times is None:
+        times = np.full(n_prof, np.datetime64("NaT"), dtype="datetime64[ns]")
+        notes.append("no time variable; time missing")
+    if names["pressure"]:
+        values["pressure"] = floats(str(names["pressure"]))
+    else:
+        depth = floats(str(names["depth"]))
+        dunits = _text(ds[names["depth"]].attrs.get("units")).strip().lower()
+        if dunits not in ("", "m", "meter", "meters", "metre", "metres"):
+            raise UnitsError(source, f"depth variable {names['depth']!r} has units {dunits!r}",
+                             "give depth in metres")
+        pidx = np.repeat(np.arange(n_prof), counts)
+        values["pressure"] = depth_to_pressure(depth, np.asarray(lat, float)[pidx])
+        notes.append(f"pressure computed from depth variable {names['depth']!r} with TEOS-10 "
+                     "gsw.p_from_z")
+    units = {k: (_attr(ds[names[k]], "units") if names.get(k) else None)
+             for k in LEVEL_VARIABLES}
+    std = {k: _text(ds[names[k]].attrs.get("standard_name")) if names.get(k) else ""
+           for k in LEVEL_VARIABLES}
+    var_names = {k: str(names.get(k) or zname) for k in LEVEL_VARIABLES}
+    conv = normalise_units(values, units, source=source, names=var_names, standard_names=std,
+                           notes=notes)
+    # ---- flags
+    flag_names = {k: _flag_var(ds, str(names[k])) for k in LEVEL_VARIABLES if names.get(k)}
+    flag_names = {k: v for k, v in flag_names.items() if v is not None}
+    detected = _detect_scheme(ds, list(flag_names.values()), source)
+    sch = get_scheme(detected or scheme or "argo").name
+    flags = {k: lvl(ds[v], lambda var: _flag_codes(var, sch, source))
+             for k, v in flag_names.items()}
+    used |= set(flag_names.values())
+    # ---- profile metadata
+    pid_vals = per_profile(pid, "str")
+    if pid_vals is None:
+        pid_vals = np.arange(n_prof).astype(str).astype(object)
+        notes.append("no cf_role=profile_id variable; profiles numbered from 0")
+    cruise_name = _by_name(ds, "cruise", inst_dim, used)
+    cruise = per_profile(cruise_name, "str")
+    if cruise is None:
+        g = next((ds.attrs[k] for k in ("cruise", "cruise_id", "expocode") if k in ds.attrs),
+                 None)
+        cruise = np.full(n_prof, _text(g) if g is not None else Path(source).stem, dtype=object)
+    platform_name = _by_name(ds, "platform", inst_dim, used, text_only=True)
+    platform = per_profile(platform_name, "str")
+    if platform is None:
+        platform = np.full(n_prof, _text(ds.attrs.get("platform", "")), dtype=object)
+    used |= {n for n in (pid, cruise_name, platform_name, names["latitude"],
+                         names["longitude"], names["time"]) if n}
+    profiles = pd.DataFrame({
+        "profile_id": pid_vals.astype(object), "cruise": cruise.astype(object),
+        "time": np.asarray(times, dtype="datetime64[ns]"),
+        "latitude": np.asarray(lat, float), "longitude": np.asarray(lon, float),
+        "platform": platform.astype(object),
+    })
+    # ---- other variables: profile columns and per-level extras
+    extra: dict[str, Any] = {}
+    for raw_name, var in ds.variables.items():
+        name = str(raw_name)
+        if name in used or name in ds.dims:
+            continue
+        label = _text(var.attrs.get("original_name")) or name
+        if label in META_COLUMNS or label in profiles.columns or label in extra:
+            continue
+        dims = tuple(var.dims)
+        base = dims[:-1] if var.dtype.kind == "S" and len(dims) > 1 else dims
+        nd = len(base)
+        if inst_dim is not None and base == (inst_dim,):
+            profiles[label] = _column(var, 1, source)
+        elif (obs_dim is not None and base == (obs_dim,)) or (
+                obs_dim is None and full and set(base) == set(full)):
+            extra[label] = lvl(var, lambda v, nd=nd: _column(v, nd, source))
+    # ---- drop empty profiles
+    if not has.any():
+        raise InputFileError(source, "no levels with data in any profile",
+                             "check that the file holds profile data")
+    attrs: dict[str, Any] = {"sources": [source]}
+    if not has.all():
+        attrs["dropped_profiles"] = int((~has).sum())
+        notes.append(f"dropped {int((~has).sum())} profile(s) with no levels")
+        profiles = profiles[has]
+    offsets = np.concatenate([[0], np.cumsum(counts[has])]).astype(np.int64)
+    attrs["global_attrs"] = {k: _text(ds.attrs[k]) for k in _GLOBAL_KEEP if k in ds.attrs}
+    if "history" in ds.attrs:
+        attrs["history"] = _text(ds.attrs["history"])
+    attrs["layout"] = layout
+    if notes:
+        attrs["notes"] = notes
+    extra_df = None
+    if extra:
+        extra_df = pd.DataFrame({k: (v if isinstance(v, pd.api.extensions.ExtensionArray)
+                                     else np.asarray(v)) for k, v in extra.items()})
+    try:
+        return ProfileBatch(
+            offsets=offsets, pressure=conv["pressure"], temperature=conv["temperature"],
+            salinity=conv["salinity"], profiles=profiles, flags=flags, scheme=sch,
+            extra=extra_df, attrs=attrs,
+        )
+    except QCFlagError as exc:
+        raise InputFileError(source, str(exc)) from None
+
+
+def _shape(ds: Any, dims: tuple[str, ...]) -> tuple[int, ...]:
+    return tuple(int(ds.sizes[d]) for d in dims)
+
+
+def _by_name(ds: Any, key: str, inst_dim: str | None, used: set[str],
+             text_only: bool = False) -> str | None:
+    lower = {str(n).lower(): str(n) for n in ds.variables if str(n) not in used}
+    for alias in _NAMES[key]:
+        name = lower.get(alias)
+        if name is None:
+            continue
+        var = ds[name]
+        if text_only and var.dtype.kind not in "SUO":
+            continue
+        dims = var.dims[:-1] if var.dtype.kind == "S" and var.ndim >= 1 else var.dims
+        if var.dtype.kind == "S" and var.ndim == 1 and inst_dim is not None \
+                and var.dims[0] == inst_dim:
+            dims = var.dims
+        if dims == () or (inst_dim is not None and dims == (inst_dim,)):
+            return name
+    return None
+
+
+def _column(var: Any, ndim: int, source: str) -> Any:
+    """Read a carried-over variable as a column: flags as code text, ints nullable, else as is."""
+    raw = np.asarray(var.values)
+    if raw.dtype.kind in "SUO":
+        return _strings(var, ndim)
+    if raw.dtype.kind in "iub":
+        if "flag_values" in var.attrs and raw.dtype.kind in "iu":
+            from qcflag.schemes import format_codes
+
+            arr = raw.astype(np.int64)
+            fill = _attr(var, "_FillValue")
+            if fill is not None:
+                arr = np.where(arr == int(np.asarray(fill).ravel()[0]), NO_FLAG, arr)
+            return format_codes(np.clip(arr, -1, 127)).astype(object)
+        fill = var.attrs.get("_FillValue")
+        if fill is None:
+            return raw.astype(np.int64)
+        mask = raw == np.asarray(fill).astype(raw.dtype)
+        out = pd.array(raw.astype(np.int64).ravel(), dtype="Int64")
+        out[mask.ravel()] = pd.NA
+        return np.asarray(out, dtype=object).reshape(raw.shape) if raw.ndim > 1 else out
+    if raw.dtype.kind == "M":
+        return raw
+    return _floats(var, source)
+
+
+# --------------------------------------------------------------------------- writing
+_TS = re.compile(r"^\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d")
+
+
+def history_line(history: str | None = None) -> str:
+    """One CF history line: ISO 8601 UTC timestamp, ``qcflag <version>:`` and the command.
+
+    Parameters
+    ----------
+    history : str, optional
+        A complete line (kept as is when it starts with an ISO timestamp) or the command
+        to record; defaults to the running command line.
+
+    Returns
+    -------
+    str
+    """
+    if history and _TS.match(history):
+        return history
+    ts = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    cmd = history or " ".join(["qcflag", *sys.argv[1:]])
+    return f"{ts} qcflag {__version__}: {cmd}"
+
+
+def _nc_name(name: str, taken: set[str]) -> str:
+    safe = re.sub(r"[^A-Za-z0-9_.@+-]", "_", str(name)) or "column"
+    if not safe[0].isalpha():
+        safe = "v_" + safe
+    if safe in taken:
+        raise QCFlagError(f"column {name!r} clashes with NetCDF variable {safe!r}; rename it")
+    return safe
+
+
+def _column_variable(values: Any, dim: str) -> tuple[NDArray[Any], dict[str, Any]]:
+    """Return data and encoding of a carried-over column (numbers stay numbers, rest is text)."""
+    s = pd.Series(values) if not isinstance(values, pd.Series) else values.reset_index(drop=True)
+    if isinstance(s.dtype, pd.Int64Dtype | pd.Int32Dtype | pd.Int16Dtype | pd.Int8Dtype):
+        fill = np.iinfo(np.int64).min
+        return s.to_numpy(dtype=np.int64, na_value=fill), {"_FillValue": fill}
+    if s.dtype.kind in "iu":
+        return s.to_numpy(dtype=np.int64), {}
+    if s.dtype.kind == "b":
+        return s.to_numpy(dtype=np.int8), {}
+    if s.dtype.kind == "f":
+        return s.to_numpy(dtype=np.float64), {"_FillValue": np.nan}
+    if s.dtype.kind == "M":
+        return to_ns(s), {}
+    return s.fillna("").astype(str).to_numpy(dtype=object), {}
+
+
+def to_dataset(
+    batch: ProfileBatch,
+    *,
+    added: Mapping[str, AddedColumn] | None = None,
+    history: str | None = None,
+) -> xr.Dataset:
+    """Return the batch as a CF-1.13 contiguous ragged profile dataset.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    added : mapping of str to AddedColumn, optional
+        Per-level variables to add (e.g. automatic flags), listed in their parent's
+        ``ancillary_variables``.
+    history : str, optional
+        History line or command (see :func:`history_line`), appended to the input's history.
+
+    Returns
+    -------
+    xarray.Dataset
+        Dimensions ``profile`` and ``obs``; encodings set for :meth:`xarray.Dataset.to_netcdf`.
+        Flag variables hold raw codes with ``-128`` where a level carries no flag.
+    """
+    import xarray as xr
+
+    sch = get_scheme(batch.scheme)
+    prof = batch.profiles
+    P, OB = PROFILE_DIM, OBS_DIM
+    ds = xr.Dataset()
+    taken: set[str] = set()
+
+    def put(name: str, dims: tuple[str, ...], data: Any, attrs: dict[str, Any],
+            encoding: dict[str, Any] | None = None) -> None:
+        ds[name] = xr.Variable(dims, data, attrs)
+        ds[name].encoding = dict(encoding or {})
+        taken.add(name)
+
+    put("profile_id", (P,), prof["profile_id"].astype(str).to_numpy(dtype=object),
+        {"cf_role": "profile_id", "long_name": "profile identifier"})
+    put("cruise", (P,), prof["cruise"].astype(str).to_numpy(dtype=object),
+        {"long_name": "cruise identifier"})
+    put("platform", (P,), prof["platform"].fillna("").astype(str).to_numpy(dtype=object),
+        {"long_name": "platform name"})
+    times = to_ns(prof["time"])
+    unit = {"s": "seconds", "ms": "milliseconds", "us": "microseconds",
+            "ns": "nanoseconds"}[time_resolution(times)]
+    put("time", (P,), times, {"standard_name": "time", "long_name": "time of the profile",
+                              "axis": "T"},
+        {"units": f"{unit} since 1970-01-01 00:00:00", "calendar": "standard",
+         "dtype": "int64", "_FillValue": np.iinfo(np.int64).min})
+    put("latitude", (P,), prof["latitude"].to_numpy(dtype=np.float64),
+        {"standard_name": "latitude", "units": "degree_north", "long_name": "latitude"},
+        {"_FillValue": np.nan})
+    put("longitude", (P,), prof["longitude"].to_numpy(dtype=np.float64),
+        {"standard_name": "longitude", "units": "degree_east", "long_name": "longitude"},
+        {"_FillValue": np.nan})
+    put("row_size", (P,), batch.counts.astype(np.int64),
+        {"sample_dimension": OB, "long_name": "number of levels in each profile"})
+    coords = "time latitude longitude pressure"
+    var_attrs = {
+        "pressure": {"standard_name": "sea_water_pressure", "units": "dbar", "axis": "Z",
+                     "positive": "down", "long_name": "sea water pressure"},
+        "temperature": {"standard_name": "sea_water_temperature", "units": "degree_Celsius",
+                        "units_metadata": "temperature: on_scale", "reference_scale": "ITS-90",
+                        "long_name": "in-situ sea water temperature", "coordinates": coords},
+        "salinity": {"standard_name": "sea_water_practical_salinity", "units": "1",
+                     "reference_scale": "PSS-78", "long_name": "practical salinity",
+                     "coordinates": coords},
+    }
+    ancillary: dict[str, list[str]] = {v: [] for v in LEVEL_VARIABLES}
+    for v in LEVEL_VARIABLES:
+        put(v, (OB,), batch.values(v), dict(var_attrs[v]), {"_FillValue": np.nan})
+    for v in LEVEL_VARIABLES:
+        if v not in batch.flags:
+            continue
+        name = f"{v}_qc"
+        codes = np.where(batch.flags[v] == NO_FLAG, FLAG_FILL, batch.flags[v]).astype(np.int8)
+        put(name, (OB,), codes, {
+            "standard_name": "quality_flag",
+            "long_name": f"{v} manual quality flag",
+            "flag_values": sch.values,
+            "flag_meanings": " ".join(sch.meanings),
+            "coverage_content_type": "qualityInformation",
+            "comment": f"flag scale: {sch.title}",
+        }, {"_FillValue": FLAG_FILL})
+        ancillary[v].append(name)
+    for c in prof.columns:
+        if c in META_COLUMNS:
+            continue
+        nc = _nc_name(c, taken)
+        data, enc = _column_variable(prof[c], P)
+        put(nc, (P,), data, {"original_name": str(c)} if nc != c else {}, enc)
+    added = dict(added or {})
+    if batch.extra is not None:
+        for c in batch.extra.columns:
+            if c in added:
+                continue  # a re-run replaces its earlier output
+            nc = _nc_name(c, taken)
+            data, enc = _column_variable(batch.extra[c], OB)
+            put(nc, (OB,), data, {"original_name": str(c)} if nc != c else {}, enc)
+    for name, col in added.items():
+        vals = np.asarray(col.values)
+        if vals.shape != (batch.n_levels,):
+            raise QCFlagError(f"added column {name!r}: {vals.shape} values for "
+                              f"{batch.n_levels} levels")
+        nc = _nc_name(name, taken)
+        attrs = {k: v for k, v in col.attrs.items() if k not in ("_FillValue",)}
+        enc: dict[str, Any] = {}
+        if "flag_values" in attrs and vals.dtype.kind in "iu":
+            fill = col.attrs.get("_FillValue", FLAG_FILL)
+            vals = np.where(vals == NO_FLAG, fill, vals).astype(np.int8)
+            enc["_FillValue"] = np.int8(fill)
+            attrs["flag_values"] = np.asarray(attrs["flag_values"], dtype=np.int8)
+        elif vals.dtype.kind == "f":
+            enc["_FillValue"] = col.attrs.get("_FillValue", np.nan)
+        elif vals.dtype.kind in "OUS":
+            vals = pd.Series(vals).fillna("").astype(str).to_numpy(dtype=object)
+        if nc != name:
+            attrs["original_name"] = name
+        put(nc, (OB,), vals, attrs, enc)
+        if col.parent is not None:
+            if col.parent not in ancillary:
+                raise QCFlagError(f"added column {name!r}: unknown parent {col.parent!r}")
+            ancillary[col.parent].append(nc)
+    for v, names in ancillary.items():
+        if names:
+            ds[v].attrs["ancillary_variables"] = " ".join(names)
+    line = history_line(history)
+    g = dict(batch.attrs.get("global_attrs", {}))
+    old = batch.attrs.get("history") or g.get("history")
+    g["history"] = f"{old.rstrip()}\n{line}" if old else line
+    g.setdefault("title", "Hydrographic profiles")
+    g["featureType"] = "profile"
+    g["Conventions"] = "CF-1.13 ACDD-1.3"
+    g["date_created"] = line[:20] if _TS.match(line) else line
+    g["qcflag_flag_scheme"] = sch.name
+    ds.attrs = {k: g[k] for k in sorted(g)}
+    return ds
+
+
+def write_netcdf(
+    batch: ProfileBatch,
+    path: str | os.PathLike[str],
+    *,
+    added: Mapping[str, AddedColumn] | None = None,
+    overwrite: bool = False,
+    history: str | None = None,
+) -> Path:
+    """Write a batch as CF-1.13 contiguous ragged NetCDF-4, atomically.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    path : path-like
+        Output file (``.nc``).
+    added : mapping of str to AddedColumn, optional
+        Per-level variables to add (see :func:`to_dataset`).
+    overwrite : bool, default=False
+        Replace an existing file.
+    history : str, optional
+        History line or command (see :func:`history_line`).
+
+    Returns
+    -------
+    Path
+        The file written.
+
+    Raises
+    ------
+    OutputExistsError
+        If `path` exists and `overwrite` is false.
+    """
+    ds = to_dataset(batch, added=added, history=history)
+    with atomic_output(path, overwrite=overwrite) as tmp:
+        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4")
+    return Path(path)
