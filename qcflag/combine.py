@@ -35,7 +35,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -59,6 +59,7 @@ __all__ = [
     "combine",
     "decide",
     "expected_cost",
+    "explain",
     "fit_fusion",
     "fuse",
     "reliability_curve",
@@ -751,3 +752,46 @@ def combine(
         forced=forced,
         proba=fused,
     )
+
+
+def explain(
+    flags: VariableFlags,
+    checks: CheckTable,
+    variable: str,
+    attribution: tuple[Sequence[str], ArrayLike],
+    *,
+    n_top_features: int = 2,
+) -> VariableFlags:
+    """Rebuild the reasons of `flags` with the model's feature attribution.
+
+    Lets a caller compute the (costly) attribution only for the levels that need it, after
+    :func:`combine` has decided the grades: levels flagged probably bad or bad by the model
+    (not forced) get ``model:<feature>`` for the features that pushed them most.
+
+    Parameters
+    ----------
+    flags : VariableFlags
+        Output of :func:`combine` with a model.
+    checks : CheckTable
+        The rule results it was built from.
+    variable : str
+        Its variable.
+    attribution : (names, array of shape (n_levels, n_features))
+        Feature contributions towards worse grades (rows of other levels are ignored).
+    n_top_features : int, default=2
+        Features named per level.
+
+    Returns
+    -------
+    VariableFlags
+        The same flags with new reasons.
+    """
+    names, mask = checks.fired_mask(variable)
+    reasons = _mask_strings(names, mask)
+    attr = (list(attribution[0]), np.asarray(attribution[1], dtype=float))
+    extra = _model_reasons(flags.grade, flags.forced, flags.proba, attr, n_top_features)
+    has_extra = extra != ""
+    both = has_extra & (reasons != "")
+    reasons = np.where(both, reasons + ";" + extra, np.where(has_extra, extra, reasons))
+    reasons = np.where(flags.state == State.ASSESSED, reasons, "")
+    return replace(flags, reasons=np.asarray(reasons, dtype=object))

@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from qcflag.combine import DecisionError, FusionParams, combine
+from qcflag.combine import DecisionError, FusionParams, combine, explain
 from qcflag.exceptions import QCFlagError
 from qcflag.result import FlagResult, VariableFlags
 from qcflag.schemes import get_scheme, profile_quality
@@ -66,13 +66,35 @@ def _fusion_for(model: Any, variable: str) -> FusionParams | None:
     return entry if isinstance(entry, FusionParams) else FusionParams.from_dict(entry)
 
 
-def _attribution(model: Any, batch: ProfileBatch, checks: CheckTable) -> dict[str, Any]:
-    """Per-level feature contributions from the model, if it offers them."""
-    fn = getattr(model, "attribution", None)
-    if fn is None or not callable(fn):
-        return {}
-    out = fn(batch, checks=checks)
-    return dict(out) if out else {}
+def _predict(
+    model: Any, batch: ProfileBatch, checks: CheckTable
+) -> tuple[dict[str, Any], dict[str, Any]]:
+    """Model probabilities per variable, and the feature matrices when the model shows them.
+
+    Models with ``features`` / ``feature_contributions`` (:class:`qcflag.learn.QCModel`)
+    build the features once, for both the probabilities and the reasons; any other object
+    with ``predict_proba(batch, checks=...)`` works too, without feature reasons.
+    """
+    feats_fn = getattr(model, "features", None)
+    ests = getattr(model, "estimators", None)
+    if callable(feats_fn) and isinstance(ests, Mapping) and hasattr(
+            model, "feature_contributions"):
+        feats = feats_fn(batch, checks)
+        return {v: ests[v].predict_proba(X) for v, X in feats.items()}, feats
+    return dict(model.predict_proba(batch, checks=checks)), {}
+
+
+def _explain(
+    model: Any, checks: CheckTable, variable: str, vf: VariableFlags, X: Any
+) -> VariableFlags:
+    """Name the features behind the levels the model flagged (attribution only there)."""
+    need = (vf.grade >= 3) & ~vf.forced
+    if not need.any():
+        return vf
+    names, contrib = model.feature_contributions(X[need], variable)
+    full = np.zeros((vf.grade.size, len(names)))
+    full[need] = contrib
+    return explain(vf, checks, variable, (names, full))
 
 
 def _decision_threshold(
@@ -185,11 +207,10 @@ def flag_batch(
     if checks.checks_for("pressure"):
         variables.append("pressure")
     proba: dict[str, Any] = {}
-    attributions: dict[str, Any] = {}
+    features: dict[str, Any] = {}
     card: dict[str, object] = {}
     if model is not None:
-        proba = dict(model.predict_proba(batch, checks=checks))
-        attributions = _attribution(model, batch, checks)
+        proba, features = _predict(model, batch, checks)
         card = dict(getattr(model, "card", {}) or {})
     out: dict[str, VariableFlags] = {}
     for var in variables:
@@ -198,14 +219,16 @@ def flag_batch(
         threshold = None
         if p is not None:
             threshold = _decision_threshold(fusion, var, target_recall, review_budget)
-        out[var] = combine(
+        vf = combine(
             checks, var, p,
             caution=caution if p is not None else 0.0,
             threshold=threshold,
             fusion=fusion,
             values=batch.values(var),
-            attribution=attributions.get(var),
         )
+        if var in features:
+            vf = _explain(model, checks, var, vf, features[var])
+        out[var] = vf
     profiles = profile_grades(out, batch.offsets, batch.profiles["profile_id"].tolist())
     return FlagResult(variables=out, checks=checks, profiles=profiles, scheme=scheme,
                       model_card=card)
