@@ -110,14 +110,28 @@ class FaultBook:
         self.bits = np.zeros(n, dtype=np.int64)
         self.n_events = 0
         self.event_kind: list[NDArray[np.int64]] = []
+        self.event_profile: list[NDArray[np.int64]] = []
 
     # ------------------------------------------------------------------ bookkeeping
-    def new_events(self, n: int, kind: str) -> NDArray[np.int64]:
-        """Allocate `n` event ids of `kind`."""
+    def new_events(self, where: NDArray[np.int64], kind: str) -> NDArray[np.int64]:
+        """Allocate one event id of `kind` per entry of `where` (its profile, or -1)."""
+        n = int(np.asarray(where).size)
         ids = np.arange(self.n_events, self.n_events + n, dtype=np.int64)
         self.n_events += n
         self.event_kind.append(np.full(n, _kind_bit(kind), dtype=np.int64))
+        self.event_profile.append(np.asarray(where, dtype=np.int64).reshape(-1))
         return ids
+
+    def events(self) -> dict[str, list[Any]]:
+        """Every fault event: its kind and profile (-1 for a cruise-wide drift)."""
+        from qcflag.simulate import FAULT_KINDS
+
+        if not self.event_kind:
+            return {"kind": [], "profile": []}
+        bits = np.concatenate(self.event_kind)
+        kinds = np.asarray(FAULT_KINDS, dtype=object)[np.log2(bits).astype(np.int64)]
+        return {"kind": kinds.tolist(),
+                "profile": np.concatenate(self.event_profile).tolist()}
 
     def mark(self, levels: NDArray[np.int64], var: str, grades: NDArray[np.int8] | int,
              kind: str, events: NDArray[np.int64] | int) -> None:
@@ -220,7 +234,7 @@ def pressure_faults(book: FaultBook, p: NDArray[np.float64], cfg: SimulationConf
     m = rng.integers(3, 9, prof.size)
     k_flat = book.pick_level(prof, 10, 12)
     k = k_flat - book.offsets[prof]
-    ids = book.new_events(prof.size, "pressure_reversal")
+    ids = book.new_events(prof, "pressure_reversal")
     n_prof = book.counts.size
     kk = np.full(n_prof, -1, dtype=np.int64)
     mm = np.zeros(n_prof, dtype=np.int64)
@@ -280,7 +294,7 @@ def value_faults(
     d_size = np.where(d_var_s, _loguniform(rng, 0.005, 0.2, n_cru),
                       _loguniform(rng, 0.003, 0.2, n_cru)) * rng.choice([-1.0, 1.0], n_cru)
     if drifting.size:
-        ids = book.new_events(drifting.size, "drift")
+        ids = book.new_events(np.full(drifting.size, -1), "drift")
         ev_of_cruise = np.full(n_cru, -1, dtype=np.int64)
         ev_of_cruise[drifting] = ids
         for var, is_s in (("salinity", True), ("temperature", False)):
@@ -295,7 +309,7 @@ def value_faults(
     # -- offset: a whole profile of one variable shifted
     hit = book.choose_profiles(rates["offset"])
     if hit.size:
-        ids = book.new_events(hit.size, "offset")
+        ids = book.new_events(hit, "offset")
         is_s = rng.random(hit.size) < 0.6
         size = np.where(is_s, _loguniform(rng, 0.005, 1.0, hit.size),
                         _loguniform(rng, 0.005, 2.0, hit.size))
@@ -320,7 +334,7 @@ def value_faults(
         k = argmax[hit]
         step = tt[k + 1] - tt[k - 1]
         gamma = _loguniform(rng, 0.03, 0.4, hit.size)
-        ids = book.new_events(hit.size, "thermal_lag")
+        ids = book.new_events(hit, "thermal_lag")
         shape = np.array([0.5, 1.0, 0.5])
         lv = (k[:, None] + np.arange(-1, 2)[None, :]).ravel()
         err = (-gamma * step)[:, None] * shape[None, :]
@@ -335,7 +349,7 @@ def value_faults(
     hit = book.choose_profiles(rates["surface_noise"])
     if hit.size:
         depth = rng.uniform(5.0, 25.0, hit.size)
-        ids = book.new_events(hit.size, "surface_noise")
+        ids = book.new_events(hit, "surface_noise")
         lv, run = run_levels(book.offsets[hit], book.counts[hit])
         keep = p[lv] < depth[run]
         lv, run = lv[keep], run[keep]
@@ -351,7 +365,7 @@ def value_faults(
         m = rng.integers(4, 26, hit.size)
         size = _loguniform(rng, 0.005, 0.5, hit.size) * np.where(rng.random(hit.size) < 0.8,
                                                                  -1.0, 1.0)
-        ids = book.new_events(hit.size, "salinity_hook")
+        ids = book.new_events(hit, "salinity_hook")
         lv, run = run_levels(book.offsets[hit + 1] - m, m)
         pos = (lv - (book.offsets[hit + 1] - m)[run] + 1) / m[run]
         err = size[run] * pos**2
@@ -367,7 +381,7 @@ def value_faults(
         start = book.pick_level(hit, lo, 0)
         start = np.minimum(start, book.offsets[hit + 1] - m - 2)
         fresh = rng.uniform(0.06, 0.5, hit.size)
-        ids = book.new_events(hit.size, "density_inversion")
+        ids = book.new_events(hit, "density_inversion")
         lv, run = run_levels(start, m)
         vals["salinity"][lv] -= fresh[run]
         drop = _inversion_drop(start, p, vals["temperature"], vals["salinity"],
@@ -383,7 +397,7 @@ def value_faults(
         if not hit.size:
             continue
         start = book.pick_level(hit, 1, 1 + width)
-        ids = book.new_events(hit.size, kind)
+        ids = book.new_events(hit, kind)
         is_s = rng.random(hit.size) < 0.5
         factor = _loguniform(rng, 0.05, 4.0, hit.size)
         sign = rng.choice([-1.0, 1.0], hit.size)
@@ -407,7 +421,7 @@ def value_faults(
         to_end = book.offsets[hit + 1] - start - 1
         m = np.where(rng.random(hit.size) < 0.4, to_end,
                      np.minimum(rng.integers(10, 151, hit.size), to_end))
-        ids = book.new_events(hit.size, "stuck")
+        ids = book.new_events(hit, "stuck")
         is_s = rng.random(hit.size) < 0.5
         lv, run = run_levels(start + 1, m)
         for var, want in (("salinity", True), ("temperature", False)):
@@ -422,7 +436,7 @@ def value_faults(
     if hit.size:
         m = rng.integers(1, 7, hit.size)
         start = book.pick_level(hit, 2, 8)
-        ids = book.new_events(hit.size, "digit_rollover")
+        ids = book.new_events(hit, "digit_rollover")
         is_s = rng.random(hit.size) < 0.3
         jump = np.where(is_s, rng.choice([5.12, 10.24], hit.size),
                         rng.choice([10.24, 20.48], hit.size)) * rng.choice([-1.0, 1.0], hit.size)
@@ -440,6 +454,7 @@ def value_faults(
         m = np.minimum(rng.geometric(0.15, hit.size), book.counts[hit] - 2)
         start = book.pick_level(hit, 0, m)
         which = rng.choice(3, hit.size, p=[0.2, 0.5, 0.3])  # T only, S only, both
+        book.new_events(hit, "missing_value")  # recorded; operators flag missing values 9
         lv, run = run_levels(start, m)
         for var, codes in (("temperature", (0, 2)), ("salinity", (1, 2))):
             sel = np.isin(which[run], codes)
@@ -513,7 +528,7 @@ def _metadata_faults(book: FaultBook, prof: pd.DataFrame, rates: dict[str, float
 
 
 def _mark_profiles(book: FaultBook, hit: NDArray[np.int64], kind: str) -> None:
-    ids = book.new_events(hit.size, kind)
+    ids = book.new_events(hit, kind)
     lv, run = run_levels(book.offsets[hit], book.counts[hit])
     book.mark(lv, "temperature", 3, kind, ids[run])
     book.mark(lv, "salinity", 3, kind, ids[run])

@@ -71,6 +71,7 @@ __all__ = [
     "SimulationConfig",
     "background",
     "default_fault_rates",
+    "demo_config",
     "simulate_archive",
     "write_scenario",
 ]
@@ -197,10 +198,10 @@ def default_fault_rates() -> dict[str, float]:
         "salinity_hook": 0.25,
         "surface_noise": 0.15,
         "density_inversion": 0.08,
-        "digit_rollover": 0.02,
+        "digit_rollover": 0.03,
         "missing_value": 0.06,
-        "bad_position": 0.015,
-        "bad_date": 0.015,
+        "bad_position": 0.03,
+        "bad_date": 0.03,
     }
 
 
@@ -311,6 +312,19 @@ class SimulationConfig:
             raise QCFlagError(f"simulation config: unknown field(s) {unknown}")
         kw = {k: tuple(v) if isinstance(v, list) else v for k, v in data.items()}
         return cls(**kw)
+
+
+def demo_config() -> SimulationConfig:
+    """Return the configuration of the small scenario shipped in ``examples/demo``.
+
+    Six CTD casts per cruise at 2 dbar to at most 600 dbar, one float with three cycles, and
+    default fault rates raised so that a four-cruise demo shows every kind of fault.
+    """
+    rates = {k: min(1.0, 2.0 * v) for k, v in default_fault_rates().items()}
+    rates.update(drift=0.5, bad_position=0.08, bad_date=0.08, digit_rollover=0.08,
+                 stuck=0.08, pressure_reversal=0.15)
+    return SimulationConfig(casts_per_cruise=6, floats_per_cruise=1, cycles_per_float=3,
+                            ctd_spacing=2.0, max_cast_pressure=600.0, fault_rates=rates)
 
 
 # ----------------------------------------------------------------------------- background
@@ -667,7 +681,8 @@ def simulate_archive(
         time, latitude, longitude, platform, operator, instrument, station`` and the profile
         truth (``truth_time``, ``truth_latitude``, ``truth_longitude``); per-level truth in
         ``extra`` (:data:`TRUTH_COLUMNS`). ``attrs["simulation"]`` holds the seed, the
-        configuration and each operator's habits.
+        configuration, each operator's habits and every fault event (``events``: lists
+        ``kind`` and ``profile``; profile -1 for a cruise-wide drift).
 
     Raises
     ------
@@ -751,6 +766,7 @@ def simulate_archive(
                 "config": cfg.to_dict(),
                 "operators": {name: ops[i] for i, name in enumerate(OPERATORS)},
                 "invented": True,
+                "events": faults.events(),
             },
         },
     )
