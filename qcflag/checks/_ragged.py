@@ -122,10 +122,10 @@ def gather(values: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.
     -------
     ndarray of float64, same shape as `index`
     """
-    out = np.full(index.shape, np.nan)
-    ok = index >= 0
-    out[ok] = values[index[ok]]
-    return out
+    ext = np.empty(values.size + 1)
+    ext[:-1] = values
+    ext[-1] = np.nan  # index -1 lands here
+    return ext[index]
 
 
 def broadcast_profiles(batch: ProfileBatch, per_profile: NDArray) -> NDArray:
@@ -179,11 +179,13 @@ def exceedance(values: NDArray[np.float64], minimum: float | None,
     ndarray of float64
         ``max(minimum - v, v - maximum)``; NaN where `values` is NaN.
     """
-    lo = np.full(values.shape, -np.inf) if minimum is None else minimum - values
-    hi = np.full(values.shape, -np.inf) if maximum is None else values - maximum
-    out = np.maximum(lo, hi)
-    out[np.isnan(values)] = np.nan
-    return out
+    if minimum is None and maximum is None:
+        return np.where(np.isnan(values), np.nan, -np.inf)
+    if minimum is None:
+        return values - maximum
+    if maximum is None:
+        return minimum - values
+    return np.maximum(minimum - values, values - maximum)  # NaN propagates
 
 
 def inside_polygon(lat: NDArray[np.float64], lon: NDArray[np.float64],
@@ -279,20 +281,42 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
     """
     n = values.size
     k = int(half_window)
-    offs = np.arange(-k, k + 1, dtype=np.int64)
-    idx = np.arange(n, dtype=np.int64)[:, None] + offs[None, :]
-    pi = batch.profile_index
-    inb = (idx >= 0) & (idx < n)
-    idc = np.clip(idx, 0, max(n - 1, 0))
-    ok = inb & valid[idc] & (pi[idc] == pi[:, None])
-    win = np.where(ok, values[idc], np.nan)
-    count = ok.sum(axis=1)
-    win.sort(axis=1)
-    med = _middle(win, count)
-    dev = np.abs(win - med[:, None])
-    dev.sort(axis=1)
-    mad = _middle(dev, count)
+    w = 2 * k + 1
+    # usable values, padded with NaN so that every level has a full window view
+    padded = np.full(n + 2 * k, np.nan)
+    padded[k:k + n] = np.where(valid, values, np.nan)
+    win = np.lib.stride_tricks.sliding_window_view(padded, w).copy()
+    ok = np.zeros(n + 2 * k + 1, dtype=np.int64)
+    ok[k + 1:k + 1 + n] = np.cumsum(valid)
+    ok[k + 1 + n:] = ok[k + n]
+    count = ok[w:w + n] - ok[:n]
+    # windows reaching past their profile's ends (2k levels per profile): mask the slots
+    above = batch.level_index
+    below = batch.counts[batch.profile_index] - above - 1
+    edge = np.flatnonzero((above < k) | (below < k))
+    if edge.size:
+        offs = np.arange(-k, k + 1, dtype=np.int64)
+        outside = (offs[None, :] < -above[edge, None]) | (offs[None, :] > below[edge, None])
+        sub = win[edge]
+        sub[outside] = np.nan
+        win[edge] = sub
+        count[edge] = np.count_nonzero(~np.isnan(sub), axis=1)
+    med = _window_middle(win, count)
+    win -= med[:, None]
+    np.abs(win, out=win)
+    mad = _window_middle(win, count)
     return med, mad, count
+
+
+def _window_middle(win: NDArray[np.float64], count: NDArray[np.int64]) -> NDArray[np.float64]:
+    """Median of each row's non-NaN values (rows hold `count` of them); reorders `win`."""
+    w = win.shape[1]
+    win.partition(w // 2, axis=1)  # NaN sorts last; full rows: the middle is in place
+    out = win[:, w // 2].copy()
+    rest = np.flatnonzero(count < w)
+    if rest.size:  # rows near profile ends or gaps: sort (NaN last) and pick
+        out[rest] = _middle(np.sort(win[rest], axis=1), count[rest])
+    return out
 
 
 def _middle(sorted_rows: NDArray[np.float64], count: NDArray[np.int64]) -> NDArray[np.float64]:

@@ -93,13 +93,9 @@ def density_inversion(
     t, s, p = batch.temperature, batch.salinity, batch.pressure
     lon = batch.per_level("longitude").astype(np.float64)
     lat = batch.per_level("latitude").astype(np.float64)
-    ok = usable(t, exclude) & np.isfinite(s) & np.isfinite(p) & np.isfinite(lon) & np.isfinite(lat)
-    i = np.flatnonzero(ok)
-    SA = np.full(t.size, np.nan)
-    CT = np.full(t.size, np.nan)
-    SA[i] = gsw.SA_from_SP(s[i], p[i], lon[i], lat[i])
-    CT[i] = gsw.CT_from_t(SA[i], t[i], p[i])
-    ok &= np.isfinite(SA) & np.isfinite(CT)
+    SA = gsw.SA_from_SP(s, p, lon, lat)  # elementwise; NaN in -> NaN out
+    CT = gsw.CT_from_t(SA, t, p)
+    ok = usable(CT, exclude) & np.isfinite(SA)
     nxt = next_valid_index(batch, ok)
     up = np.flatnonzero(ok & (nxt >= 0))
     lo = nxt[up]

@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import usable
+from qcflag.checks._ragged import gather, prev_valid_index, usable
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -49,27 +49,22 @@ def pressure_increasing(
 
     Notes
     -----
-    The running maximum per profile is computed without a loop: pressures are ranked
-    (exact integer keys), the key is offset by ``profile * n_ranks`` so that profiles never
-    mix, and :func:`numpy.maximum.accumulate` runs over the whole batch.
+    No loop: in profiles whose usable pressures all increase, the running maximum is the
+    previous usable pressure. Only the other profiles go through the exact ranked running
+    maximum of :func:`_running_max_before`.
     """
     p = batch.pressure
     ok = usable(p, exclude)
-    uniq, rank = np.unique(p[ok], return_inverse=True)
-    n_rank = max(int(uniq.size), 1)
-    key = batch.profile_index * n_rank - 1  # unusable levels: below every key of the profile
-    key[ok] = batch.profile_index[ok] * n_rank + rank.ravel()
-    run = np.maximum.accumulate(key) if key.size else key
-    prev = np.empty_like(run)
-    if run.size:
-        prev[0] = -1
-        prev[1:] = run[:-1]
-    prev_rank = prev - batch.profile_index * n_rank
-    has_prev = (prev_rank >= 0) & ~batch.first_level
-    stat = np.full(p.size, np.nan)
-    sel = has_prev & np.isfinite(p)
-    stat[sel] = uniq[prev_rank[sel]] - p[sel]
-    fail = sel & (stat >= 0)
+    # Fast path: where every usable pressure exceeds the previous usable one, the running
+    # maximum above a level is simply the previous usable pressure.
+    prev = gather(p, prev_valid_index(batch, ok))
+    stat = prev - p
+    irregular = np.zeros(batch.n_profiles, dtype=bool)
+    irregular[batch.profile_index[ok & (stat >= 0)]] = True
+    if irregular.any():
+        lv = irregular[batch.profile_index]
+        stat[lv] = _running_max_before(batch, p, ok, lv) - p[lv]
+    fail = stat >= 0
     grade = np.where(fail, 4, 1).astype(np.int8)
     grade[np.isnan(p)] = 0
     out = {"pressure": CheckResult(stat, grade)}
@@ -77,4 +72,29 @@ def pressure_increasing(
         g = grade.copy()
         g[np.isnan(batch.values(name))] = 0
         out[name] = CheckResult(stat.copy(), g)
+    return out
+
+
+def _running_max_before(batch: ProfileBatch, p: NDArray[np.float64], ok: NDArray[np.bool_],
+                        levels: NDArray[np.bool_]) -> NDArray[np.float64]:
+    """Largest usable pressure above each selected level in its profile (NaN if none).
+
+    Pressures are ranked (exact integer keys), the key is offset by ``profile * n_ranks``
+    so that profiles never mix, and :func:`numpy.maximum.accumulate` runs over all of them.
+    `levels` must select whole profiles.
+    """
+    pi = batch.profile_index[levels]
+    sub_ok = ok[levels]
+    uniq, rank = np.unique(p[levels][sub_ok], return_inverse=True)
+    n_rank = max(int(uniq.size), 1)
+    key = pi * n_rank - 1  # unusable levels: below every key of their profile
+    key[sub_ok] = pi[sub_ok] * n_rank + rank.ravel()
+    run = np.maximum.accumulate(key)
+    before = np.empty_like(run)
+    before[0] = -1
+    before[1:] = run[:-1]
+    before_rank = before - pi * n_rank
+    out = np.full(pi.size, np.nan)
+    has = before_rank >= 0
+    out[has] = uniq[before_rank[has]]
     return out

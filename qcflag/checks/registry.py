@@ -252,7 +252,8 @@ def _load_lazy() -> None:
         if isinstance(obj, CheckSpec):
             CHECKS.setdefault(obj.name, obj)
         elif callable(obj):
-            CHECKS[ep.name] = CheckSpec(ep.name, obj, description=f"plug-in {ep.value}")
+            CHECKS[ep.name] = CheckSpec(ep.name, _accepting_variable(obj),
+                                        description=f"plug-in {ep.value}")
 
 
 def _accepting_variable(func: CheckFunc) -> CheckFunc:
