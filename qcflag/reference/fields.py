@@ -211,7 +211,8 @@ def _horizontal(
     for start in range(0, n, _CHUNK):  # chunks bound memory; each chunk is vectorised
         sl = slice(start, min(start + _CHUNK, n))
         w, rows, cols, ok = _corners(grid, lat[sl], lon[sl])
-        v = grid.values[rows, cols].astype(np.float64)  # (4, m, n_fields)
+        flat = grid.values.reshape(-1, grid.values.shape[2])
+        v = np.take(flat, rows * grid.shape[1] + cols, axis=0).astype(np.float64)  # (4, m, f)
         if method == "deepest":
             res = np.min(v, axis=0)  # lowest elevation of the four nodes
         elif method == "nearest":
