@@ -652,7 +652,7 @@ def _ar1(rng: np.random.Generator, offsets: NDArray[np.int64], p: NDArray[np.flo
 
 def _day_of_year(time: pd.Series) -> NDArray[np.float64]:
     t = pd.DatetimeIndex(time)
-    return (t.dayofyear.to_numpy() - 1 + t.hour.to_numpy() / 24.0).astype(np.float64)
+    return (t.day_of_year.to_numpy() - 1 + t.hour.to_numpy() / 24.0).astype(np.float64)
 
 
 # ------------------------------------------------------------------------------ the archive
