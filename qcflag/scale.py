@@ -1,0 +1,518 @@
+"""Flag whole archives: many files, big files, one laptop or an existing dask cluster.
+
+The unit of distribution is a file. Each task opens its file, flags it in chunks of whole
+profiles (so the working memory of the checks, features and model grows with the chunk,
+not the file), writes its output atomically and returns only a small summary. The driver
+never holds level data: it submits a bounded number of tasks at a time and gathers their
+summaries, so an archive far larger than memory streams through in constant space.
+
+Because flagging a subset of profiles gives the same flags as flagging them with the rest
+(:func:`qcflag.pipeline.flag_batch` is a pure per-profile function), the chunk size and
+the number of workers do not change a single byte of the output: ``--workers 2`` writes
+the same files as ``--workers 1`` and as the single-process :func:`qcflag.pipeline.flag_files`
+given the same history line.
+
+dask is imported inside the functions that use it (it is only needed for ``workers > 1``
+or an existing cluster).
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from collections.abc import Iterable, Iterator, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from qcflag.exceptions import InputFileError, QCFlagError
+
+if TYPE_CHECKING:
+    from qcflag.profiles import ProfileBatch
+
+__all__ = ["DEFAULT_CHUNK_LEVELS", "ArchiveSummary", "FileSummary", "flag_files_parallel"]
+
+DEFAULT_CHUNK_LEVELS = 1_000_000
+"""Levels flagged at once inside a task (whole profiles; about 0.5 GB of working memory)."""
+
+
+@dataclass(frozen=True)
+class FileSummary:
+    """What one task reports back about one input file.
+
+    Parameters
+    ----------
+    input, output : str
+        Input file and the file written.
+    n_profiles, n_levels : int
+        Profiles and levels flagged.
+    grade_counts : dict of str to list of int
+        Per variable, the number of levels given grade 1, 2, 3 and 4 (index 0-3).
+    seconds : float
+        Wall time of the task (read, flag, write).
+    """
+
+    input: str
+    output: str
+    n_profiles: int
+    n_levels: int
+    grade_counts: dict[str, list[int]]
+    seconds: float
+
+
+@dataclass
+class ArchiveSummary:
+    """Summary of a run over many files.
+
+    Parameters
+    ----------
+    files : list of FileSummary
+        One entry per input, in input order.
+    workers : int
+        Number of dask workers used (1 means in this process, without dask).
+    scheduler : str or None
+        Address of the scheduler, or None for an in-process run.
+    seconds : float
+        Wall time of the whole run.
+    """
+
+    files: list[FileSummary] = field(default_factory=list)
+    workers: int = 1
+    scheduler: str | None = None
+    seconds: float = 0.0
+
+    @property
+    def n_files(self) -> int:
+        """Number of files flagged."""
+        return len(self.files)
+
+    @property
+    def n_profiles(self) -> int:
+        """Profiles flagged over all files."""
+        return sum(f.n_profiles for f in self.files)
+
+    @property
+    def n_levels(self) -> int:
+        """Levels flagged over all files."""
+        return sum(f.n_levels for f in self.files)
+
+    @property
+    def levels_per_second(self) -> float:
+        """End-to-end throughput of the run, levels per second."""
+        return self.n_levels / self.seconds if self.seconds > 0 else float("nan")
+
+    def grade_counts(self) -> dict[str, list[int]]:
+        """Per variable, levels given grade 1-4 over all files."""
+        out: dict[str, list[int]] = {}
+        for f in self.files:
+            for var, counts in f.grade_counts.items():
+                acc = out.setdefault(var, [0, 0, 0, 0])
+                for i, c in enumerate(counts):
+                    acc[i] += c
+        return out
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return a JSON-ready summary (no per-level data)."""
+        return {
+            "n_files": self.n_files,
+            "n_profiles": self.n_profiles,
+            "n_levels": self.n_levels,
+            "workers": self.workers,
+            "scheduler": self.scheduler,
+            "seconds": round(self.seconds, 3),
+            "levels_per_second": round(self.levels_per_second, 1),
+            "grade_counts": self.grade_counts(),
+            "outputs": [f.output for f in self.files],
+        }
+
+
+# --------------------------------------------------------------------------- the task
+def output_paths(inputs: list[Path], out: Path) -> list[Path]:
+    """Where the flagged copies go: the rule of :func:`qcflag.pipeline.flag_files`.
+
+    One input writes the file `out` (unless `out` is a directory); several inputs write
+    files named like the inputs into the directory `out`.
+
+    Parameters
+    ----------
+    inputs : list of Path
+        Input files.
+    out : Path
+        Output file or directory.
+
+    Returns
+    -------
+    list of Path
+
+    Raises
+    ------
+    QCFlagError
+        If several inputs share a name, or `out` is a file when a directory is needed.
+    """
+    if len(inputs) == 1 and not out.is_dir():
+        return [out]
+    names = [p.name for p in inputs]
+    dup = sorted({n for n in names if names.count(n) > 1})
+    if dup:
+        raise QCFlagError(f"{dup[0]}: several inputs share this name, so their outputs in "
+                          f"{out} would collide; flag them in separate runs")
+    if out.exists() and not out.is_dir():
+        raise QCFlagError(f"{out}: several inputs need an output directory, not a file")
+    return [out / n for n in names]
+
+
+def _concat_added(parts: list[Mapping[str, Any]]) -> dict[str, Any]:
+    """Concatenate the added columns of consecutive chunks of one file."""
+    from qcflag.io import AddedColumn
+
+    if len(parts) == 1:
+        return dict(parts[0])
+    out = {}
+    for name, first in parts[0].items():
+        values = np.concatenate([np.asarray(p[name].values) for p in parts])
+        out[name] = AddedColumn(values, dict(first.attrs), first.parent)
+    return out
+
+
+def flag_batch_chunked(
+    batch: ProfileBatch,
+    *,
+    chunk_levels: int = DEFAULT_CHUNK_LEVELS,
+    model: Any = None,
+    rules: Any = None,
+    scheme: str = "argo",
+    probabilities: bool = False,
+    **options: Any,
+) -> tuple[dict[str, Any], dict[str, list[int]]]:
+    """Flag `batch` in chunks of whole profiles; return its added columns and grade counts.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        Profiles to flag.
+    chunk_levels : int, default=DEFAULT_CHUNK_LEVELS
+        About how many levels to flag at once (whole profiles; a longer profile is one chunk).
+    model, rules, scheme, probabilities, **options
+        Passed to :func:`qcflag.pipeline.flag_batch` and
+        :func:`qcflag.pipeline.flagged_columns`. `scheme` is the output flag scheme.
+
+    Returns
+    -------
+    added : dict of str to AddedColumn
+        Columns to write beside the original variables, covering the whole batch.
+    grade_counts : dict of str to list of int
+        Per variable, the number of levels given grade 1, 2, 3 and 4.
+    """
+    from qcflag.pipeline import flag_batch, flagged_columns
+
+    out_scheme = scheme
+    parts: list[Mapping[str, Any]] = []
+    counts: dict[str, np.ndarray] = {}
+    chunks = [batch] if batch.n_levels <= chunk_levels else batch.iter_chunks(chunk_levels)
+    for chunk in chunks:
+        result = flag_batch(chunk, model=model, rules=rules, scheme=out_scheme, **options)
+        parts.append(flagged_columns(chunk, result, scheme=out_scheme,
+                                     probabilities=probabilities))
+        for var, vf in result.variables.items():
+            acc = counts.setdefault(var, np.zeros(4, dtype=np.int64))
+            acc += np.bincount(np.asarray(vf.grade, dtype=np.int64), minlength=5)[1:5]
+    if not parts:  # an empty file: flag it whole so the columns exist
+        result = flag_batch(batch, model=model, rules=rules, scheme=out_scheme, **options)
+        parts.append(flagged_columns(batch, result, scheme=out_scheme,
+                                     probabilities=probabilities))
+    return _concat_added(parts), {k: [int(x) for x in v] for k, v in counts.items()}
+
+
+_MODEL_CACHE: dict[tuple[str, int, int], Any] = {}
+
+
+def _resolve_model(model: Any) -> Any:
+    """Load a model given as a path once per process (workers keep it between tasks)."""
+    if model is None or not isinstance(model, (str, os.PathLike)):
+        return model
+    from qcflag.learn import load_model
+
+    p = Path(model)
+    st = p.stat()
+    key = (str(p.resolve()), st.st_mtime_ns, st.st_size)
+    if key not in _MODEL_CACHE:
+        _MODEL_CACHE.clear()
+        _MODEL_CACHE[key] = load_model(p)
+    return _MODEL_CACHE[key]
+
+
+def flag_one_file(
+    path: str | os.PathLike[str],
+    out_path: str | os.PathLike[str],
+    *,
+    chunk_levels: int = DEFAULT_CHUNK_LEVELS,
+    overwrite: bool = False,
+    history: str | None = None,
+    model: Any = None,
+    probabilities: bool = False,
+    **options: Any,
+) -> FileSummary:
+    """Read one file, flag it in chunks of whole profiles, write it atomically.
+
+    This is the task every worker runs; it returns only a small summary.
+
+    Parameters
+    ----------
+    path : path-like
+        Input file (any format :func:`qcflag.io.iter_batches` reads).
+    out_path : path-like
+        Output file (format chosen by its suffix, as :func:`qcflag.io.write` does).
+    chunk_levels : int, default=DEFAULT_CHUNK_LEVELS
+        About how many levels to flag at once.
+    overwrite : bool, default=False
+        Replace an existing output.
+    history : str, optional
+        The history line to append to the output (pass the same string to every task so
+        outputs do not depend on when or where a task ran).
+    model : OrdinalModel or path-like, optional
+        Fitted model, or the path of a saved one (loaded once per worker process).
+    probabilities : bool, default=False
+        Also write the fused grade probabilities.
+    **options
+        Passed to :func:`qcflag.pipeline.flag_batch` (``rules``, ``scheme``, ``caution``...).
+
+    Returns
+    -------
+    FileSummary
+    """
+    from qcflag.io import iter_batches, write
+
+    t0 = time.perf_counter()
+    path = Path(path)
+    out_path = Path(out_path)
+    model = _resolve_model(model)
+    n_profiles = n_levels = 0
+    grade_counts: dict[str, list[int]] = {}
+    for _, batch in iter_batches([path]):
+        added, grade_counts = flag_batch_chunked(
+            batch, chunk_levels=chunk_levels, model=model, probabilities=probabilities,
+            **options,
+        )
+        write(batch, out_path, added=added, overwrite=overwrite, history=history)
+        n_profiles, n_levels = batch.n_profiles, batch.n_levels
+    return FileSummary(str(path), str(out_path), n_profiles, n_levels, grade_counts,
+                       time.perf_counter() - t0)
+
+
+# --------------------------------------------------------------------------- the driver
+def _progress(total: int, enabled: bool) -> Any:
+    """Start a rich progress bar on stderr (None when disabled)."""
+    if not enabled:
+        return None
+    from rich.console import Console
+    from rich.progress import (
+        BarColumn,
+        MofNCompleteColumn,
+        Progress,
+        TextColumn,
+        TimeElapsedColumn,
+        TimeRemainingColumn,
+    )
+
+    prog = Progress(
+        TextColumn("flagging"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TextColumn("files"),
+        TimeElapsedColumn(),
+        TimeRemainingColumn(),
+        console=Console(stderr=True),
+        transient=False,
+    )
+    prog.start()
+    prog.add_task("flag", total=total)
+    return prog
+
+
+def _plan(
+    inputs: Sequence[str | os.PathLike[str]], out: str | os.PathLike[str], overwrite: bool
+) -> list[tuple[Path, Path]]:
+    """Pair inputs with outputs and refuse problems before any work starts."""
+    from qcflag.io.atomic import check_writable
+
+    paths = [Path(p) for p in inputs]
+    if not paths:
+        raise InputFileError(None, "no input files given", "name at least one file")
+    for p in paths:
+        if not p.is_file():
+            raise InputFileError(p, "no such input file", "check the path")
+    out = Path(out)
+    if len(paths) > 1:
+        out.mkdir(parents=True, exist_ok=True)
+    targets = output_paths(paths, out)
+    resolved_in = {p.resolve() for p in paths}
+    for t in targets:
+        if t.resolve() in resolved_in:
+            raise QCFlagError(f"{t}: output would replace an input; choose another --out")
+        check_writable(t, overwrite=overwrite)
+    return list(zip(paths, targets, strict=True))
+
+
+def _client(workers: int, scheduler: str | None) -> tuple[Any, Any]:
+    """Connect to `scheduler`, or start a LocalCluster of `workers` single-threaded processes."""
+    from distributed import Client, LocalCluster
+
+    if scheduler:
+        try:
+            return Client(scheduler, timeout="20s"), None
+        except OSError as exc:
+            raise QCFlagError(
+                f"--scheduler {scheduler}: cannot connect ({exc}); check the address and "
+                "that the scheduler is running"
+            ) from None
+    cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                           dashboard_address=None, memory_limit="auto")
+    return Client(cluster), cluster
+
+
+def _run_serial(
+    pairs: Iterable[tuple[Path, Path]], task_options: dict[str, Any], progress: Any
+) -> Iterator[FileSummary]:
+    for src, dst in pairs:
+        yield flag_one_file(src, dst, **task_options)
+        if progress is not None:
+            progress.advance(0)
+
+
+def _run_dask(
+    pairs: list[tuple[Path, Path]],
+    task_options: dict[str, Any],
+    client: Any,
+    max_in_flight: int,
+    progress: Any,
+) -> dict[int, FileSummary]:
+    from distributed import as_completed
+
+    results: dict[int, FileSummary] = {}
+    todo = iter(enumerate(pairs))
+    futures = {}
+
+    def submit_next() -> bool:
+        try:
+            i, (src, dst) = next(todo)
+        except StopIteration:
+            return False
+        fut = client.submit(flag_one_file, str(src), str(dst), **task_options,
+                            key=f"qcflag-file-{i}-{src.name}", pure=False)
+        futures[fut] = i
+        return True
+
+    for _ in range(max_in_flight):
+        if not submit_next():
+            break
+    pending = as_completed(list(futures))
+    for fut in pending:
+        i = futures.pop(fut)
+        try:
+            results[i] = fut.result()
+        except BaseException:
+            for other in list(futures):
+                other.cancel()
+            raise
+        fut.release()
+        if progress is not None:
+            progress.advance(0)
+        if submit_next():
+            new = next(reversed(futures))
+            pending.add(new)
+    return results
+
+
+def flag_files_parallel(
+    inputs: Sequence[str | os.PathLike[str]],
+    out: str | os.PathLike[str],
+    *,
+    workers: int = 1,
+    scheduler: str | None = None,
+    chunk_levels: int = DEFAULT_CHUNK_LEVELS,
+    progress: bool = True,
+    overwrite: bool = False,
+    history: str | None = None,
+    model: Any = None,
+    **options: Any,
+) -> ArchiveSummary:
+    """Flag many files on dask.distributed, streaming one file per task.
+
+    Parameters
+    ----------
+    inputs : sequence of path-like
+        Input files (NetCDF or CSV).
+    out : path-like
+        Output directory (or the output file when there is a single input), as for
+        :func:`qcflag.pipeline.flag_files`.
+    workers : int, default=1
+        Number of worker processes of the LocalCluster started for the run (one thread
+        each). ``1`` without a `scheduler` runs in this process without dask.
+    scheduler : str, optional
+        Address of an existing dask scheduler (``"tcp://host:8786"``); `workers` is then
+        ignored. Workers there must have qcflag installed and see the same file paths.
+    chunk_levels : int, default=DEFAULT_CHUNK_LEVELS
+        About how many levels a task flags at once (whole profiles).
+    progress : bool, default=True
+        Show a progress bar on stderr.
+    overwrite : bool, default=False
+        Replace existing outputs.
+    history : str, optional
+        Command recorded in the history line, or a complete line (starting with an ISO
+        8601 timestamp) kept as is; default: this process's arguments. The line is made
+        once here, so every task writes the same line whatever worker runs it and when.
+    model : OrdinalModel or path-like, optional
+        Fitted model, or the path of a saved one (each worker loads it once).
+    **options
+        Passed to :func:`qcflag.pipeline.flag_batch` (``rules``, ``scheme``, ``caution``,
+        ``probabilities``...).
+
+    Returns
+    -------
+    ArchiveSummary
+        Per-file summaries in input order and the run's throughput.
+
+    Raises
+    ------
+    InputFileError
+        If an input is missing or two inputs would write the same output.
+    OutputExistsError
+        If an output exists and `overwrite` is false (checked before any work starts).
+    QCFlagError
+        Any error a task raises (the first one stops the run; outputs already written
+        stay, none is left half-written).
+    """
+    if workers < 1:
+        raise QCFlagError(f"--workers {workers}: must be at least 1")
+    if chunk_levels < 1:
+        raise QCFlagError(f"chunk_levels {chunk_levels}: must be at least 1")
+    t0 = time.perf_counter()
+    pairs = _plan(inputs, out, overwrite)
+    from qcflag.io.netcdf import history_line
+
+    history = history_line(history)
+    task_options = dict(options, chunk_levels=chunk_levels, overwrite=overwrite,
+                        history=history, model=model)
+    bar = _progress(len(pairs), progress)
+    try:
+        if workers == 1 and not scheduler:
+            files = list(_run_serial(pairs, task_options, bar))
+            summary = ArchiveSummary(files, workers=1, scheduler=None)
+        else:
+            client, cluster = _client(workers, scheduler)
+            try:
+                n = len(client.scheduler_info(n_workers=-1)["workers"]) or workers
+                results = _run_dask(pairs, task_options, client, max(2 * n, 2), bar)
+                summary = ArchiveSummary([results[i] for i in range(len(pairs))], workers=n,
+                                         scheduler=scheduler or client.scheduler.address)
+            finally:
+                client.close()
+                if cluster is not None:
+                    cluster.close()
+    finally:
+        if bar is not None:
+            bar.stop()
+    summary.seconds = time.perf_counter() - t0
+    return summary
