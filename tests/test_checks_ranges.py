@@ -51,7 +51,7 @@ def test_global_range_pressure_grades_all_three_variables():
     expected = [4, 4, 3, 3, 3, 1, 1, 1]
     assert out["pressure"].grade.tolist() == expected
     assert out["temperature"].grade.tolist() == expected
-    assert out["salinity"].grade.tolist() == expected[:-1] + [0]  # missing value: no grade
+    assert out["salinity"].grade.tolist() == [*expected[:-1], 0]  # missing value: no grade
     np.testing.assert_allclose(out["pressure"].statistic, [-2.4 - x for x in p])
 
 
@@ -97,7 +97,7 @@ def test_pressure_increasing_equal_and_reversed():
         {"pressure": [5.0, 6.0, 7.0]},
     )
     out = pressure_increasing(b)
-    expected = [1, 1, 4, 4, 1] + [1, 1, 1, 4, 4, 4, 1] + [1, 1, 1]
+    expected = [1, 1, 4, 4, 1, 1, 1, 1, 4, 4, 4, 1, 1, 1, 1]
     for name in ("pressure", "temperature", "salinity"):
         assert out[name].grade.tolist() == expected
     st = out["pressure"].statistic

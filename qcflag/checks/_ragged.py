@@ -282,6 +282,8 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
     n = values.size
     k = int(half_window)
     w = 2 * k + 1
+    if n == 0:
+        return np.zeros(0), np.zeros(0), np.zeros(0, dtype=np.int64)
     # usable values, padded with NaN so that every level has a full window view
     padded = np.full(n + 2 * k, np.nan)
     padded[k:k + n] = np.where(valid, values, np.nan)

@@ -1,0 +1,151 @@
+"""Whole-batch properties: batch == profile by profile; vectorised == plain loop version.
+
+The plain loop implementation (bench/loop_checks.py) is a second, independent write-up of
+the same definitions, level by level; both must agree exactly on generated batches.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from qcflag import ProfileBatch
+from qcflag.checks import robust_z, second_difference
+from qcflag.checks._ragged import moving_median_mad, next_valid_index, prev_valid_index
+from qcflag.rules import RuleSet, load_rules, run_checks
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
+from loop_checks import own_steps, run_checks_loop
+
+OWN = own_steps("standard")
+
+
+@st.composite
+def batches(draw, max_profiles=5, max_levels=30):
+    n_prof = draw(st.integers(1, max_profiles))
+    counts = draw(st.lists(st.integers(0, max_levels), min_size=n_prof, max_size=n_prof))
+    n = sum(counts)
+    # coarse values so that ties, repeats, spikes and inversions all occur
+    temp = draw(st.lists(st.sampled_from([np.nan, -3.0, 2.0, 4.0, 4.0, 10.0, 10.5, 17.0,
+                                          41.0]), min_size=n, max_size=n))
+    sal = draw(st.lists(st.sampled_from([np.nan, 1.0, 34.5, 34.85, 35.0, 35.0, 36.0, 42.0]),
+                        min_size=n, max_size=n))
+    pres = draw(st.lists(st.sampled_from([np.nan, -6.0, -3.0, 0.0, 5.0, 10.0, 10.0, 490.0,
+                                          500.0, 800.0, 1000.0]), min_size=n, max_size=n))
+    pres = np.sort(np.asarray(pres, dtype=float)) if draw(st.booleans()) else np.asarray(pres)
+    lat = draw(st.lists(st.sampled_from([38.0, 20.0, -30.0, np.nan]), min_size=n_prof,
+                        max_size=n_prof))
+    offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+    profiles = pd.DataFrame({
+        "profile_id": [f"p{i}" for i in range(n_prof)], "cruise": "H",
+        "time": pd.to_datetime(["2020-01-01"] * n_prof), "latitude": lat,
+        "longitude": [5.0 if la == 38.0 else 40.0 for la in lat], "platform": "",
+    })
+    return ProfileBatch(offsets=offsets, pressure=pres, temperature=np.asarray(temp, float),
+                        salinity=np.asarray(sal, float), profiles=profiles)
+
+
+def _assert_tables_equal(a, b):
+    assert list(a.results) == list(b.results)
+    for key in a.results:
+        ra, rb = a.results[key], b.results[key]
+        assert np.array_equal(ra.grade, rb.grade), key
+        assert np.array_equal(ra.statistic, rb.statistic, equal_nan=True), key
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(batches())
+def test_batch_equals_profiles_one_by_one(batch):
+    whole = run_checks(batch, OWN)
+    parts = [run_checks(batch[i], OWN) for i in range(batch.n_profiles)]
+    for key, res in whole.results.items():
+        stat = np.concatenate([p.results[key].statistic for p in parts])
+        grade = np.concatenate([p.results[key].grade for p in parts])
+        assert np.array_equal(res.grade, grade), key
+        assert np.array_equal(res.statistic, stat, equal_nan=True), key
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(batches())
+def test_vectorised_equals_plain_loop(batch):
+    _assert_tables_equal(run_checks(batch, OWN), run_checks_loop(batch, OWN))
+
+
+def test_loop_equivalence_on_coastal_rules():
+    rng = np.random.default_rng(7)
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
+    from _synthetic import synthetic_batch
+
+    batch = synthetic_batch(6000, min_levels=5, max_levels=400, seed=int(rng.integers(99)))
+    rs = own_steps("coastal")
+    _assert_tables_equal(run_checks(batch, rs), run_checks_loop(batch, rs))
+
+
+def test_prev_next_valid_index_against_definition():
+    rng = np.random.default_rng(1)
+    batch = next(iter([_random_batch(rng)]))
+    valid = rng.random(batch.n_levels) < 0.6
+    prev, nxt = prev_valid_index(batch, valid), next_valid_index(batch, valid)
+    for i in range(batch.n_levels):  # definition, written naively
+        lo, hi = batch.offsets[batch.profile_index[i]], batch.offsets[batch.profile_index[i] + 1]
+        before = [j for j in range(lo, i) if valid[j]]
+        after = [j for j in range(i + 1, hi) if valid[j]]
+        assert prev[i] == (before[-1] if before else -1)
+        assert nxt[i] == (after[0] if after else -1)
+
+
+def _random_batch(rng):
+    counts = rng.integers(0, 15, size=12)
+    n = int(counts.sum())
+    offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+    profiles = pd.DataFrame({"profile_id": [str(i) for i in range(12)], "cruise": "R",
+                             "time": pd.to_datetime(["2020-01-01"] * 12), "latitude": 0.0,
+                             "longitude": 0.0, "platform": ""})
+    return ProfileBatch(offsets=offsets, pressure=np.arange(n, dtype=float),
+                        temperature=rng.normal(10, 1, n), salinity=rng.normal(35, 0.1, n),
+                        profiles=profiles)
+
+
+def test_moving_median_mad_against_numpy_median():
+    rng = np.random.default_rng(2)
+    batch = _random_batch(rng)
+    v = batch.temperature.copy()
+    valid = rng.random(v.size) < 0.8
+    med, mad, count = moving_median_mad(batch, v, valid, 3)
+    for i in range(v.size):
+        lo = batch.offsets[batch.profile_index[i]]
+        hi = batch.offsets[batch.profile_index[i] + 1]
+        win = [v[j] for j in range(max(lo, i - 3), min(hi, i + 4)) if valid[j]]
+        assert count[i] == len(win)
+        if win:
+            assert med[i] == np.median(win)  # numpy's median as the reference
+            assert mad[i] == np.median(np.abs(np.asarray(win) - np.median(win)))
+        else:
+            assert np.isnan(med[i])
+
+
+def test_shape_statistics_react_to_a_spike():
+    rng = np.random.default_rng(4)
+    batch = _random_batch(rng)
+    t = np.linspace(20, 5, batch.n_levels)
+    t[40] += 3.0
+    b = ProfileBatch(offsets=batch.offsets, pressure=batch.pressure, temperature=t,
+                     salinity=batch.salinity, profiles=batch.profiles)
+    z = robust_z(b, variable="temperature").statistic
+    d2 = second_difference(b, variable="temperature").statistic
+    assert np.nanargmax(np.abs(z)) == 40 and z[40] > 5
+    assert np.nanargmin(d2) == 40 and d2[40] == t[39] - 2 * t[40] + t[41]
+    assert (robust_z(b, variable="temperature").grade == 0).all()
+
+
+def test_rule_set_round_trip_through_text(tmp_path):
+    rs = load_rules("standard")
+    f = tmp_path / "copy.toml"
+    f.write_text(rs.text)
+    again = load_rules(f)
+    assert isinstance(again, RuleSet) and again.checks == rs.checks
