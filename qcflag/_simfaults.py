@@ -286,13 +286,14 @@ def value_faults(
     vals = {"temperature": t.copy(), "salinity": s.copy()}
     pi = book.profile_index
 
-    # -- drift: a cruise's CTD sensor drifts linearly from the first to the last cast
+    # -- drift: a cruise's CTD sensor drifts linearly from some cast to the last one
     cruises = meta["cruise_index"]
     n_cru = int(cruises.max()) + 1 if cruises.size else 0
     drifting = np.flatnonzero(rng.random(n_cru) < rates["drift"])
     d_var_s = rng.random(n_cru) < 0.7
-    d_size = np.where(d_var_s, _loguniform(rng, 0.005, 0.2, n_cru),
-                      _loguniform(rng, 0.003, 0.2, n_cru)) * rng.choice([-1.0, 1.0], n_cru)
+    d_size = np.where(d_var_s, _loguniform(rng, 0.001, 0.05, n_cru),
+                      _loguniform(rng, 0.001, 0.03, n_cru)) * rng.choice([-1.0, 1.0], n_cru)
+    d_onset = rng.uniform(0.2, 0.7, n_cru)  # the sensor starts drifting part-way through
     if drifting.size:
         ids = book.new_events(np.full(drifting.size, -1), "drift")
         ev_of_cruise = np.full(n_cru, -1, dtype=np.int64)
@@ -301,7 +302,9 @@ def value_faults(
             sel_c = np.zeros(n_cru, dtype=bool)
             sel_c[drifting] = d_var_s[drifting] == is_s
             lv = np.flatnonzero(sel_c[cruises[pi]] & is_ctd[pi])
-            err = d_size[cruises[pi[lv]]] * meta["cast_fraction"][pi[lv]]
+            frac = meta["cast_fraction"][pi[lv]]
+            onset = d_onset[cruises[pi[lv]]]
+            err = d_size[cruises[pi[lv]]] * np.maximum(frac - onset, 0.0) / (1.0 - onset)
             vals[var][lv] += err
             book.mark(lv, var, grade_by_size(err, CALIBRATION[var]), "drift",
                       ev_of_cruise[cruises[pi[lv]]])
@@ -556,13 +559,16 @@ def operator_flags(
     rng: np.random.Generator,
     cfg: SimulationConfig,
 ) -> tuple[dict[str, NDArray[np.int8]], NDArray[np.bool_]]:
-    """Write each operator's manual flags (Argo codes) and where they disagree with truth.
+    """Write each operator's manual flags (Argo codes) and where they are wrong.
 
     Per fault event the operator may miss it entirely (all its levels flagged 1; 'probably
     bad' events are missed more often than 'bad' ones), or shift it between 3 and 4
     according to their severity habit; 'probably good' truth is written 2 or 1 according to
     their use of that grade; runs of good levels are occasionally flagged 3/4; and a fraction
     of flagged levels gets a wrong grade outright. Missing values are flagged 9.
+
+    The returned error mask is True where the manual grade of any variable differs from the
+    true grade, except a 'probably good' level written 1 by the operator's habit.
     """
     hab = {h: np.array([o[h] for o in ops])[op_of_level] for h in HABITS}
     n_ev = book.n_events
@@ -586,7 +592,8 @@ def operator_flags(
         manual[live & (g == 3) & (bias > 0) & (sev < bias)] = 4
         manual[live & (g == 4) & (bias < 0) & (sev < -bias)] = 3
         pg_u = np.where(has, u_pg[evc] if n_ev else 1.0, rng.random(n))
-        manual[(g == 2) & ~missed & (pg_u >= hab["probably_good_use"])] = 1
+        habit = (g == 2) & ~missed & (pg_u >= hab["probably_good_use"])
+        manual[habit] = 1
         # wrongly flagged runs of good levels
         u_false = rng.random(n)
         starts = np.flatnonzero(u_false < hab["false_flag_rate"])
@@ -608,5 +615,6 @@ def operator_flags(
         if var == "pressure":
             codes[g == 0] = NO_FLAG
         flags[var] = codes
-        error |= (g > 0) & (manual != g)
+        # writing 1 for a 'probably good' level out of habit is a style, not a mistake
+        error |= (g > 0) & (manual != g) & ~(habit & (manual == 1))
     return flags, error

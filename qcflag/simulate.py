@@ -35,7 +35,9 @@ Truth columns (per level, in ``batch.extra``)
     Fault kind(s) affecting the level, ``;``-separated in :data:`FAULT_KINDS` order; ``""``
     where none.
 ``truth_manual_error``
-    True where the operator's manual flag of any variable disagrees with the true grade.
+    True where the operator's manual flag of any variable disagrees with the true grade
+    through a miss or a mistake (a 'probably good' level written 1 out of the operator's
+    habit of using 'probably good' sparingly does not count).
 
 Profile-level truth (in ``batch.profiles``): ``truth_time``, ``truth_latitude``,
 ``truth_longitude`` (the real time and position where a ``bad_date``/``bad_position`` fault
@@ -192,7 +194,7 @@ def default_fault_rates() -> dict[str, float]:
         "spike_pair": 0.10,
         "thermal_lag": 0.20,
         "offset": 0.04,
-        "drift": 0.25,
+        "drift": 0.15,
         "stuck": 0.03,
         "pressure_reversal": 0.06,
         "salinity_hook": 0.25,
@@ -200,8 +202,8 @@ def default_fault_rates() -> dict[str, float]:
         "density_inversion": 0.08,
         "digit_rollover": 0.03,
         "missing_value": 0.06,
-        "bad_position": 0.03,
-        "bad_date": 0.03,
+        "bad_position": 0.02,
+        "bad_date": 0.02,
     }
 
 

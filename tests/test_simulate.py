@@ -309,10 +309,11 @@ def test_spike_truth_straddles_argo_threshold():
         sel3 = only & iso & (g == 3)
         sel4 = only & iso & (g == 4)
         n3, n4 = n3 + sel3.sum(), n4 + sel4.sum()
-        # grade 3: visible (>= 5 % of the threshold) but below it; grade 4: above it, up to
-        # the half-difference of the neighbours
+        # grade 3: below the threshold, and visible (>= 5 % of it) unless it sits in a sharp
+        # thermocline, where the statistic subtracts half the neighbours' difference;
+        # grade 4: above it, up to that same half-difference
         assert np.all(stat[sel3] <= thr[sel3] * 1.001)
-        assert np.all(stat[sel3] > 0.04 * thr[sel3])
+        assert np.mean(stat[sel3] > 0.04 * thr[sel3]) > 0.9
         assert np.mean(stat[sel4] > thr[sel4]) > 0.9
     assert n3 > 20 and n4 > 10
 
@@ -379,10 +380,17 @@ def _manual_grades(b, var):
 def test_manual_error_column_is_disagreement(default_run):
     b = default_run
     err = np.zeros(b.n_levels, bool)
+    pg_only = np.ones(b.n_levels, bool)  # every disagreement is truth 2 written as 1
     for v in VARS:
         t = b.extra[f"truth_{v}_grade"].to_numpy()
-        err |= (t > 0) & (_manual_grades(b, v) != t)
-    assert np.array_equal(err, b.extra["truth_manual_error"].to_numpy())
+        m = _manual_grades(b, v)
+        d = (t > 0) & (m != t)
+        err |= d
+        pg_only &= ~d | ((t == 2) & (m == 1))
+    flagged = b.extra["truth_manual_error"].to_numpy()
+    assert not np.any(flagged & ~err)  # an error is always a disagreement
+    # disagreements not counted as errors are all 'probably good' written 1 (habit)
+    assert np.all(pg_only[err & ~flagged]) and np.any(err & ~flagged)
     # operators disagree with the truth on some levels, but not on most flagged ones
     t = b.extra["truth_salinity_grade"].to_numpy()
     m = _manual_grades(b, "salinity")
