@@ -34,6 +34,11 @@ if TYPE_CHECKING:
 
 __all__ = ["DEFAULT_CHUNK_LEVELS", "ArchiveSummary", "FileSummary", "flag_files_parallel"]
 
+_COUNT_KEYS = ("1", "2", "3", "4", "missing")
+
+CONNECT_TIMEOUT = "20s"
+"""How long to keep trying to reach a ``--scheduler`` address."""
+
 DEFAULT_CHUNK_LEVELS = 1_000_000
 """Levels flagged at once inside a task (whole profiles; about 0.5 GB of working memory)."""
 
@@ -48,8 +53,9 @@ class FileSummary:
         Input file and the file written.
     n_profiles, n_levels : int
         Profiles and levels flagged.
-    grade_counts : dict of str to list of int
-        Per variable, the number of levels given grade 1, 2, 3 and 4 (index 0-3).
+    grade_counts : dict of str to dict of str to int
+        Per variable, levels given grade ``"1"`` ... ``"4"`` and ``"missing"`` (no grade),
+        as in :class:`qcflag.pipeline.FlagSummary`.
     seconds : float
         Wall time of the task (read, flag, write).
     """
@@ -58,7 +64,7 @@ class FileSummary:
     output: str
     n_profiles: int
     n_levels: int
-    grade_counts: dict[str, list[int]]
+    grade_counts: dict[str, dict[str, int]]
     seconds: float
 
 
@@ -76,12 +82,15 @@ class ArchiveSummary:
         Address of the scheduler, or None for an in-process run.
     seconds : float
         Wall time of the whole run.
+    rules_only : bool
+        True when no model was used.
     """
 
     files: list[FileSummary] = field(default_factory=list)
     workers: int = 1
     scheduler: str | None = None
     seconds: float = 0.0
+    rules_only: bool = True
 
     @property
     def n_files(self) -> int:
@@ -103,29 +112,40 @@ class ArchiveSummary:
         """End-to-end throughput of the run, levels per second."""
         return self.n_levels / self.seconds if self.seconds > 0 else float("nan")
 
-    def grade_counts(self) -> dict[str, list[int]]:
-        """Per variable, levels given grade 1-4 over all files."""
-        out: dict[str, list[int]] = {}
+    def grade_counts(self) -> dict[str, dict[str, int]]:
+        """Per variable, levels given grade ``"1"`` ... ``"4"`` and ``"missing"``."""
+        out: dict[str, dict[str, int]] = {}
         for f in self.files:
             for var, counts in f.grade_counts.items():
-                acc = out.setdefault(var, [0, 0, 0, 0])
-                for i, c in enumerate(counts):
-                    acc[i] += c
+                acc = out.setdefault(var, dict.fromkeys(_COUNT_KEYS, 0))
+                for k, c in counts.items():
+                    acc[k] += c
         return out
 
     def to_dict(self) -> dict[str, Any]:
-        """Return a JSON-ready summary (no per-level data)."""
+        """Return a JSON-ready summary (no per-level data).
+
+        The keys of :meth:`qcflag.pipeline.FlagSummary.to_json` (``outputs``,
+        ``n_profiles``, ``n_levels``, ``rules_only``, ``counts``) plus ``workers``,
+        ``scheduler``, ``seconds`` and ``levels_per_second``.
+        """
         return {
-            "n_files": self.n_files,
+            "outputs": [f.output for f in self.files],
             "n_profiles": self.n_profiles,
             "n_levels": self.n_levels,
+            "rules_only": self.rules_only,
+            "counts": self.grade_counts(),
             "workers": self.workers,
             "scheduler": self.scheduler,
             "seconds": round(self.seconds, 3),
             "levels_per_second": round(self.levels_per_second, 1),
-            "grade_counts": self.grade_counts(),
-            "outputs": [f.output for f in self.files],
         }
+
+    def to_json(self) -> str:
+        """JSON text of :meth:`to_dict`."""
+        import json
+
+        return json.dumps(self.to_dict(), indent=2)
 
 
 # --------------------------------------------------------------------------- the task
@@ -185,7 +205,7 @@ def flag_batch_chunked(
     scheme: str = "argo",
     probabilities: bool = False,
     **options: Any,
-) -> tuple[dict[str, Any], dict[str, list[int]]]:
+) -> tuple[dict[str, Any], dict[str, dict[str, int]]]:
     """Flag `batch` in chunks of whole profiles; return its added columns and grade counts.
 
     Parameters
@@ -202,8 +222,8 @@ def flag_batch_chunked(
     -------
     added : dict of str to AddedColumn
         Columns to write beside the original variables, covering the whole batch.
-    grade_counts : dict of str to list of int
-        Per variable, the number of levels given grade 1, 2, 3 and 4.
+    grade_counts : dict of str to dict of str to int
+        Per variable, levels given grade ``"1"`` ... ``"4"`` and ``"missing"``.
     """
     from qcflag.pipeline import flag_batch, flagged_columns
 
@@ -216,13 +236,15 @@ def flag_batch_chunked(
         parts.append(flagged_columns(chunk, result, scheme=out_scheme,
                                      probabilities=probabilities))
         for var, vf in result.variables.items():
-            acc = counts.setdefault(var, np.zeros(4, dtype=np.int64))
-            acc += np.bincount(np.asarray(vf.grade, dtype=np.int64), minlength=5)[1:5]
+            acc = counts.setdefault(var, np.zeros(5, dtype=np.int64))
+            acc += np.bincount(np.asarray(vf.grade, dtype=np.int64), minlength=5)[:5]
     if not parts:  # an empty file: flag it whole so the columns exist
         result = flag_batch(batch, model=model, rules=rules, scheme=out_scheme, **options)
         parts.append(flagged_columns(batch, result, scheme=out_scheme,
                                      probabilities=probabilities))
-    return _concat_added(parts), {k: [int(x) for x in v] for k, v in counts.items()}
+    tally = {var: {**{str(g): int(c[g]) for g in range(1, 5)}, "missing": int(c[0])}
+             for var, c in counts.items()}
+    return _concat_added(parts), tally
 
 
 _MODEL_CACHE: dict[tuple[str, int, int], Any] = {}
@@ -289,7 +311,7 @@ def flag_one_file(
     out_path = Path(out_path)
     model = _resolve_model(model)
     n_profiles = n_levels = 0
-    grade_counts: dict[str, list[int]] = {}
+    grade_counts: dict[str, dict[str, int]] = {}
     for _, batch in iter_batches([path]):
         added, grade_counts = flag_batch_chunked(
             batch, chunk_levels=chunk_levels, model=model, probabilities=probabilities,
@@ -361,14 +383,15 @@ def _client(workers: int, scheduler: str | None) -> tuple[Any, Any]:
 
     if scheduler:
         try:
-            return Client(scheduler, timeout="20s"), None
+            return Client(scheduler, timeout=CONNECT_TIMEOUT), None
         except OSError as exc:
             raise QCFlagError(
                 f"--scheduler {scheduler}: cannot connect ({exc}); check the address and "
                 "that the scheduler is running"
             ) from None
     cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                           dashboard_address=None, memory_limit="auto")
+                           dashboard_address=None, worker_dashboard_address=None,
+                           memory_limit="auto")
     return Client(cluster), cluster
 
 
@@ -515,4 +538,5 @@ def flag_files_parallel(
         if bar is not None:
             bar.stop()
     summary.seconds = time.perf_counter() - t0
+    summary.rules_only = model is None
     return summary

@@ -39,6 +39,11 @@ def flag_cmd(
         "--probabilities", help="Also write the grade probabilities.")] = False,
     overwrite: Annotated[bool, typer.Option(
         "--overwrite", help="Replace existing outputs.")] = False,
+    workers: Annotated[int | None, typer.Option(
+        help="Flag files in parallel on this many dask worker processes (a LocalCluster).",
+        min=1)] = None,
+    scheduler: Annotated[str | None, typer.Option(
+        help="Address of an existing dask scheduler (tcp://host:port) to run on.")] = None,
 ) -> None:
     """Flag every level of INPUTS and write them with automatic flag columns added.
 
@@ -46,6 +51,16 @@ def flag_cmd(
     temperature and salinity (and pressure where checked). Automated flags assist expert
     QC and do not replace it.
     """
+    if workers is not None or scheduler is not None:
+        from qcflag.scale import flag_files_parallel  # lazy: dask only when asked for
+
+        summary = flag_files_parallel(
+            inputs, out, workers=workers or 1, scheduler=scheduler, model=model, rules=rules,
+            scheme=scheme, overwrite=overwrite, caution=caution, target_recall=target_recall,
+            review_budget=review_budget, probabilities=probabilities,
+        )
+        typer.echo(summary.to_json())
+        return
     from qcflag.pipeline import flag_files
 
     summary = flag_files(

@@ -1,0 +1,126 @@
+"""Archive scale: parallel flagging writes exactly what the single-process run writes.
+
+The archive is invented (qcflag.simulate); what is checked is that splitting the work
+over processes and chunks changes nothing, and that bad requests fail before any work.
+"""
+
+from __future__ import annotations
+
+import filecmp
+import json
+
+import numpy as np
+import pytest
+import xarray as xr
+from typer.testing import CliRunner
+
+from qcflag.cli import app
+from qcflag.exceptions import OutputExistsError, QCFlagError
+from qcflag.io import read_file, write
+from qcflag.scale import flag_batch_chunked, flag_files_parallel
+from qcflag.simulate import SimulationConfig, simulate_archive
+
+HISTORY = "2024-05-06T07:08:09Z qcflag test: fixed history line"
+
+
+@pytest.fixture(scope="module")
+def archive(tmp_path_factory):
+    """Three cruise files (NetCDF) and one CSV of invented profiles."""
+    d = tmp_path_factory.mktemp("archive")
+    cfg = SimulationConfig(casts_per_cruise=4, floats_per_cruise=1, max_cast_pressure=600)
+    b = simulate_archive(3, seed=11, config=cfg)
+    paths = []
+    cruises = b.profiles["cruise"].to_numpy()
+    for i, c in enumerate(np.unique(cruises)):
+        p = d / (f"{c}.nc" if i < 2 else f"{c}.csv")
+        write(b.select(cruises == c), p)
+        paths.append(p)
+    return paths
+
+
+def _same_files(a, b, names):
+    return [n for n in names if not filecmp.cmp(a / n, b / n, shallow=False)]
+
+
+def test_chunked_flagging_equals_whole_batch(archive):
+    batch = read_file(archive[0])
+    whole, counts = flag_batch_chunked(batch, chunk_levels=10**9)
+    parts, counts_parts = flag_batch_chunked(batch, chunk_levels=300)
+    assert batch.n_levels > 3 * 300  # really split into several chunks
+    assert list(whole) == list(parts)
+    for name in whole:
+        np.testing.assert_array_equal(np.asarray(whole[name].values),
+                                      np.asarray(parts[name].values), err_msg=name)
+    assert counts == counts_parts
+    assert sum(counts["temperature"].values()) == batch.n_levels
+
+
+def test_serial_run_equals_flag_files(archive, tmp_path, monkeypatch):
+    from qcflag import pipeline
+
+    monkeypatch.setattr(pipeline, "_history_line", lambda command: HISTORY)
+    pipeline.flag_files(archive, tmp_path / "ref")
+    summary = flag_files_parallel(archive, tmp_path / "one", workers=1, history=HISTORY,
+                                  chunk_levels=500, progress=False)
+    names = [p.name for p in archive]
+    assert _same_files(tmp_path / "ref", tmp_path / "one", names) == []
+    assert summary.n_files == 3
+    assert summary.n_levels == sum(read_file(p).n_levels for p in archive)
+    data = json.loads(summary.to_json())
+    assert data["outputs"] == [str(tmp_path / "one" / n) for n in names]
+
+
+def test_two_workers_byte_identical_to_one(archive, tmp_path):
+    one = flag_files_parallel(archive, tmp_path / "w1", workers=1, history=HISTORY,
+                              progress=False)
+    two = flag_files_parallel(archive, tmp_path / "w2", workers=2, history=HISTORY,
+                              chunk_levels=700, progress=True)
+    assert two.workers == 2 and two.scheduler is not None
+    names = [p.name for p in archive]
+    assert _same_files(tmp_path / "w1", tmp_path / "w2", names) == []
+    assert one.grade_counts() == two.grade_counts()
+    # and the flags really are there
+    with xr.open_dataset(tmp_path / "w2" / names[0]) as ds:
+        assert "temperature_flag_auto" in ds
+        assert "temperature_flag_auto" in ds["temperature"].attrs["ancillary_variables"]
+
+
+def test_existing_output_refused_before_any_work(archive, tmp_path):
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / archive[1].name).write_bytes(b"keep me")
+    with pytest.raises(OutputExistsError, match="--overwrite"):
+        flag_files_parallel(archive, out, workers=1, progress=False)
+    assert not (out / archive[0].name).exists()  # nothing was written
+    assert (out / archive[1].name).read_bytes() == b"keep me"
+    flag_files_parallel(archive, out, workers=1, overwrite=True, progress=False)
+    assert (out / archive[1].name).read_bytes() != b"keep me"
+
+
+def test_bad_requests(archive, tmp_path):
+    with pytest.raises(QCFlagError, match="workers"):
+        flag_files_parallel(archive, tmp_path / "o", workers=0)
+    with pytest.raises(QCFlagError, match="no such input file"):
+        flag_files_parallel([tmp_path / "missing.nc"], tmp_path / "o")
+    with pytest.raises(QCFlagError, match="replace an input"):
+        flag_files_parallel([archive[0]], archive[0], overwrite=True, progress=False)
+
+
+def test_cli_workers_and_bad_scheduler(archive, tmp_path, monkeypatch):
+    from qcflag import scale
+
+    monkeypatch.setattr(scale, "CONNECT_TIMEOUT", "2s")
+    runner = CliRunner()
+    res = runner.invoke(app, ["flag", *map(str, archive[:2]), "-o", str(tmp_path / "cli"),
+                              "--workers", "1"])
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)["workers"] == 1
+    assert (tmp_path / "cli" / archive[0].name).is_file()
+    res = runner.invoke(app, ["flag", str(archive[0]), "-o", str(tmp_path / "x.nc"),
+                              "--scheduler", "tcp://127.0.0.1:9"])
+    assert res.exit_code == 1
+    assert "--scheduler tcp://127.0.0.1:9" in res.stderr
+    assert not (tmp_path / "x.nc").exists()
+    res = runner.invoke(app, ["flag", str(archive[0]), "-o", str(tmp_path / "y.nc"),
+                              "--workers", "0"])
+    assert res.exit_code == 2
