@@ -8,7 +8,9 @@ boundaries, "previous valid level" is an index forward-fill with
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+import hashlib
+import weakref
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -16,6 +18,8 @@ if TYPE_CHECKING:
     from numpy.typing import NDArray
 
     from qcflag.profiles import ProfileBatch
+
+_MEMO: weakref.WeakKeyDictionary[Any, dict[Any, Any]] = weakref.WeakKeyDictionary()
 
 __all__ = [
     "broadcast_profiles",
@@ -68,16 +72,20 @@ def prev_valid_index(batch: ProfileBatch, valid: NDArray[np.bool_]) -> NDArray[n
         ``j < i`` with ``valid[j]`` and ``j`` in the profile of ``i``, the largest such; -1
         where there is none.
     """
-    n = valid.size
-    idx = np.where(valid, np.arange(n, dtype=np.int64), -1)
-    filled = np.maximum.accumulate(idx) if n else idx
-    prev = np.empty(n, dtype=np.int64)
-    if n:
-        prev[0] = -1
-        prev[1:] = filled[:-1]
-    start = batch.offsets[:-1][batch.profile_index]
-    prev[prev < start] = -1
-    return prev
+    key = ("prev", _digest(valid))
+    memo = _memo(batch)
+    if key not in memo:
+        n = valid.size
+        idx = np.where(valid, np.arange(n, dtype=np.int64), -1)
+        filled = np.maximum.accumulate(idx) if n else idx
+        prev = np.empty(n, dtype=np.int64)
+        if n:
+            prev[0] = -1
+            prev[1:] = filled[:-1]
+        prev[prev < _bounds(batch)[0]] = -1
+        prev.setflags(write=False)
+        memo[key] = prev
+    return memo[key]
 
 
 def next_valid_index(batch: ProfileBatch, valid: NDArray[np.bool_]) -> NDArray[np.int64]:
@@ -95,17 +103,45 @@ def next_valid_index(batch: ProfileBatch, valid: NDArray[np.bool_]) -> NDArray[n
     ndarray of int64, shape (n_levels,)
         Smallest ``j > i`` with ``valid[j]`` in the profile of ``i``; -1 where there is none.
     """
-    n = valid.size
-    big = np.iinfo(np.int64).max
-    idx = np.where(valid, np.arange(n, dtype=np.int64), big)
-    filled = np.minimum.accumulate(idx[::-1])[::-1] if n else idx
-    nxt = np.empty(n, dtype=np.int64)
-    if n:
-        nxt[-1] = big
-        nxt[:-1] = filled[1:]
-    end = batch.offsets[1:][batch.profile_index]
-    nxt[nxt >= end] = -1
-    return nxt
+    key = ("next", _digest(valid))
+    memo = _memo(batch)
+    if key not in memo:
+        n = valid.size
+        big = np.iinfo(np.int64).max
+        idx = np.where(valid, np.arange(n, dtype=np.int64), big)
+        filled = np.minimum.accumulate(idx[::-1])[::-1] if n else idx
+        nxt = np.empty(n, dtype=np.int64)
+        if n:
+            nxt[-1] = big
+            nxt[:-1] = filled[1:]
+        nxt[nxt >= _bounds(batch)[1]] = -1
+        nxt.setflags(write=False)
+        memo[key] = nxt
+    return memo[key]
+
+
+def _memo(batch: ProfileBatch) -> dict[Any, Any]:
+    """Per-batch cache of neighbour indices (batches are immutable; dropped with the batch)."""
+    memo = _MEMO.get(batch)
+    if memo is None:
+        memo = _MEMO[batch] = {}
+    if len(memo) > 32:
+        memo.clear()
+    return memo
+
+
+def _digest(valid: NDArray[np.bool_]) -> bytes:
+    return hashlib.blake2b(np.packbits(valid).tobytes() + valid.size.to_bytes(8, "little"),
+                           digest_size=16).digest()
+
+
+def _bounds(batch: ProfileBatch) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """First index and one-past-last index of each level's profile."""
+    memo = _memo(batch)
+    if "bounds" not in memo:
+        pi = batch.profile_index
+        memo["bounds"] = (batch.offsets[:-1][pi], batch.offsets[1:][pi])
+    return memo["bounds"]
 
 
 def gather(values: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.float64]:
@@ -153,13 +189,17 @@ def profile_reduce(batch: ProfileBatch, values: NDArray[np.float64],
     ndarray of float64, shape (n_profiles,)
         NaN for "min"/"max" of a profile without valid levels.
     """
-    pi = batch.profile_index
     if kind == "count":
-        return np.bincount(pi, weights=valid.astype(np.float64), minlength=batch.n_profiles)
-    out = np.full(batch.n_profiles, np.inf if kind == "min" else -np.inf)
+        return np.bincount(batch.profile_index, weights=valid.astype(np.float64),
+                           minlength=batch.n_profiles)
+    fill = np.inf if kind == "min" else -np.inf
     ufunc = np.minimum if kind == "min" else np.maximum
-    ufunc.at(out, pi[valid], values[valid])
-    out[~np.isfinite(out)] = np.nan
+    out = np.full(batch.n_profiles, fill)
+    nonempty = np.flatnonzero(batch.counts > 0)
+    if nonempty.size:
+        filled = np.where(valid, values, fill)
+        out[nonempty] = ufunc.reduceat(filled, batch.offsets[:-1][nonempty])
+    out[np.isinf(out)] = np.nan
     return out
 
 
