@@ -166,6 +166,12 @@ def _parse_times(path: Path, name: str, col: pd.Series) -> np.ndarray:
         line = int(np.flatnonzero(codes == np.flatnonzero(bad)[0])[0]) + 2
         raise _fail(path, f"column {name!r} line {line} has a time {first!r} that is not "
                     "ISO 8601", "write times like 2024-01-14T10:22:00Z")
+    years = parsed.dt.year.to_numpy(dtype=np.float64, na_value=np.nan)
+    out_of_range = (years < 1678) | (years > 2261)
+    if out_of_range.any():
+        first = uniques[np.flatnonzero(out_of_range)[0]]
+        raise _fail(path, f"column {name!r} has a time {first!r} outside 1678-2261",
+                    "check the year")
     ns = to_ns(parsed)
     return ns[codes] if codes.size else ns[:0]
 

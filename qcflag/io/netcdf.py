@@ -105,6 +105,94 @@ def _check_magic(path: Path) -> None:
                              "if it is CSV, give it a .csv name; else fetch the file again")
 
 
+_TYPE_SIZE = {1: 1, 2: 1, 3: 2, 4: 4, 5: 4, 6: 8, 7: 1, 8: 2, 9: 4, 10: 8, 11: 8}
+
+
+class _HeaderError(Exception):
+    pass
+
+
+def _check_classic_header(path: Path) -> None:
+    """Refuse a classic (CDF-1/2/5) header whose counts or offsets cannot fit the file.
+
+    The NetCDF library trusts these numbers and can spend minutes on a corrupt header, so
+    they are checked first (format: NetCDF Users Guide, "The NetCDF Classic Format
+    Specification", from memory).
+    """
+    size = path.stat().st_size
+    with path.open("rb") as fh:
+        buf = fh.read(min(size, 4 << 20))
+    if not buf.startswith(b"CDF"):
+        return
+    version = buf[3]
+    wide = 8 if version == 5 else 4
+    pos = [4]
+
+    def take(n: int) -> bytes:
+        if pos[0] + n > len(buf):
+            raise _HeaderError("header runs past the end of the file")
+        out = buf[pos[0]:pos[0] + n]
+        pos[0] += n
+        return out
+
+    def num(n: int) -> int:
+        return int.from_bytes(take(n), "big", signed=False)
+
+    def count() -> int:
+        n = num(wide)
+        if n > size:
+            raise _HeaderError(f"a count of {n} exceeds the file size")
+        return n
+
+    def name() -> None:
+        n = count()
+        take((n + 3) // 4 * 4)
+
+    def attrs() -> None:
+        tag, n = num(4), count()
+        if tag not in (0, 12) or (tag == 0 and n):
+            raise _HeaderError("bad attribute list tag")
+        for _ in range(n):
+            name()
+            t = num(4)
+            if t not in _TYPE_SIZE:
+                raise _HeaderError(f"unknown type {t}")
+            m = count()
+            take((m * _TYPE_SIZE[t] + 3) // 4 * 4)
+
+    try:
+        num(wide)  # numrecs
+        tag, n_dims = num(4), count()
+        if tag not in (0, 10):
+            raise _HeaderError("bad dimension list tag")
+        for _ in range(n_dims):
+            name()
+            num(wide)
+        attrs()
+        tag, n_vars = num(4), count()
+        if tag not in (0, 11):
+            raise _HeaderError("bad variable list tag")
+        for _ in range(n_vars):
+            name()
+            nd = count()
+            for _ in range(nd):
+                if num(wide) >= max(n_dims, 1):
+                    raise _HeaderError("a variable uses an unknown dimension")
+            attrs()
+            if num(4) not in _TYPE_SIZE:
+                raise _HeaderError("unknown variable type")
+            num(wide)  # vsize
+            begin = num(4 if version == 1 else 8)
+            if begin > size:
+                raise _HeaderError("variable data starts past the end of the file")
+    except _HeaderError as exc:
+        if "past the end" in str(exc) and len(buf) < size:
+            return  # header longer than what was read: leave it to the library
+        raise InputFileError(path, f"corrupt NetCDF header ({exc})",
+                             "the file is probably truncated or damaged; fetch it again"
+                             ) from None
+
+
 def read_netcdf(path: str | os.PathLike[str], *, scheme: str | None = None) -> ProfileBatch:
     """Read a CF DSG profile or Argo-format NetCDF file.
 
@@ -133,6 +221,7 @@ def read_netcdf(path: str | os.PathLike[str], *, scheme: str | None = None) -> P
     if path.is_dir():
         raise IsADirectoryError(21, "is a directory", str(path))
     _check_magic(path)
+    _check_classic_header(path)
     try:
         with xr.open_dataset(path, engine="netcdf4", decode_cf=False, mask_and_scale=False,
                              decode_times=False, cache=False) as ds:

@@ -1,0 +1,278 @@
+"""CF DSG NetCDF reader (four layouts) and CF contiguous-ragged writer."""
+
+from __future__ import annotations
+
+import hashlib
+import importlib.util
+from pathlib import Path
+
+import netCDF4
+import numpy as np
+import pytest
+import xarray as xr
+
+from qcflag import InputFileError, UnitsError
+from qcflag.io import (
+    AddedColumn,
+    from_dataset,
+    read_csv,
+    read_netcdf,
+    to_dataset,
+    write_csv,
+    write_netcdf,
+)
+from qcflag.schemes import SCHEMES
+
+DATA = Path(__file__).resolve().parent / "data"
+CANONICAL = DATA / "canonical.csv"
+HIST = "2025-01-01T00:00:00Z qcflag 0.0: test"
+
+
+def _golden():
+    spec = importlib.util.spec_from_file_location("make_golden", DATA / "make_golden.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+G = _golden()
+
+
+@pytest.mark.parametrize("layout", ["contiguous", "indexed", "incomplete"])
+def test_layouts_match_canonical_csv(tmp_path, layout):
+    """Each CF DSG layout (CF-1.13 ch. 9; files written independently with netCDF4)."""
+    path = DATA / f"layout_{layout}.nc"
+    before = hashlib.sha256(path.read_bytes()).hexdigest()
+    b = read_netcdf(path)
+    ref = read_csv(CANONICAL)
+    assert b.counts.tolist() == ref.counts.tolist()
+    for v in ("pressure", "temperature", "salinity"):
+        np.testing.assert_array_equal(b.values(v), ref.values(v))
+        np.testing.assert_array_equal(b.flags[v], ref.flags[v])
+    for c in ("profile_id", "cruise", "platform", "time", "latitude", "longitude"):
+        assert b.profiles[c].tolist() == ref.profiles[c].tolist()
+    # the per-test spike flags are not taken for the manual flags, they are kept as extras
+    assert "TEMP_spike_test" in b.extra.columns
+    # NetCDF -> CSV keeps every value and flag: the canonical columns come out identical
+    out = write_csv(b, tmp_path / "o.csv")
+    got = out.read_text().splitlines()
+    want = CANONICAL.read_text().splitlines()
+    n = 12  # profile_id ... salinity_flag
+    assert [",".join(r.split(",")[:n]) for r in got[1:]] == \
+        [",".join(r.split(",")[:n]) for r in want[1:]]
+    assert hashlib.sha256(path.read_bytes()).hexdigest() == before
+
+
+def test_orthogonal_layout():
+    b = read_netcdf(DATA / "layout_orthogonal.nc")
+    assert b.counts.tolist() == [4, 4]
+    np.testing.assert_array_equal(b.pressure, G.ORTHO_PRESSURE * 2)
+    want_t = np.concatenate([np.float32(p["temperature"]) for p in G.ORTHO]).astype(float)
+    np.testing.assert_array_equal(b.temperature, want_t)
+    assert b.flags["temperature"].tolist() == [int(c) for p in G.ORTHO
+                                               for c in p["temperature_flag"]]
+    assert b.profiles["profile_id"].tolist() == ["O1", "O2"]
+    # days since 1950-01-01: 27000.5 days -> 2023-12-04T12:00 (computed with numpy)
+    assert b.profiles["time"].iloc[1] == np.datetime64("1950-01-01") + np.timedelta64(
+        27000 * 24 + 12, "h")
+
+
+def test_writer_cf_attributes():
+    b = read_csv(CANONICAL)
+    ds = to_dataset(b, history=HIST)
+    assert ds.attrs["featureType"] == "profile"
+    assert ds.attrs["Conventions"] == "CF-1.13 ACDD-1.3"
+    assert ds.attrs["history"].endswith(HIST)
+    assert ds.attrs["date_created"] == "2025-01-01T00:00:00Z"
+    assert ds["row_size"].attrs["sample_dimension"] == "obs"
+    assert ds["row_size"].values.tolist() == b.counts.tolist()
+    assert ds["profile_id"].attrs["cf_role"] == "profile_id"
+    assert ds["pressure"].attrs["standard_name"] == "sea_water_pressure"
+    assert ds["pressure"].attrs["units"] == "dbar" and ds["pressure"].attrs["axis"] == "Z"
+    assert ds["temperature"].attrs["units_metadata"] == "temperature: on_scale"
+    assert ds["salinity"].attrs["standard_name"] == "sea_water_practical_salinity"
+    assert ds["salinity"].attrs["units"] == "1"
+    qc = ds["temperature_qc"]
+    assert qc.dtype == np.int8 and qc.encoding["_FillValue"] == -128
+    argo = SCHEMES["argo"]
+    assert qc.attrs["flag_values"].tolist() == argo.values.tolist()
+    assert qc.attrs["flag_meanings"].split() == argo.meanings
+    # CF 3.5: one token per value, tokens only alphanumerics and _-.+@
+    assert len(qc.attrs["flag_meanings"].split()) == len(qc.attrs["flag_values"])
+    assert all(set(t) <= set("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789_-.+@")
+               for t in qc.attrs["flag_meanings"].split())
+    assert ds["temperature"].attrs["ancillary_variables"] == "temperature_qc"
+    assert (qc.values == -128).sum() == int((b.flags["temperature"] == -1).sum())
+
+
+def test_written_file_is_cf_readable_and_deterministic(tmp_path):
+    b = read_csv(CANONICAL)
+    a = write_netcdf(b, tmp_path / "a.nc", history=HIST)
+    c = write_netcdf(b, tmp_path / "c.nc", history=HIST)
+    assert a.read_bytes() == c.read_bytes()
+    with netCDF4.Dataset(a) as nc:  # independent reader
+        assert nc.dimensions["obs"].size == b.n_levels
+        assert nc["temperature_qc"].dtype == np.int8
+        np.testing.assert_array_equal(nc["salinity"][:].filled(np.nan), b.salinity)
+
+
+def test_history_appended_to_existing(tmp_path):
+    b = read_csv(CANONICAL)
+    first = read_netcdf(write_netcdf(b, tmp_path / "1.nc", history=HIST))
+    second = to_dataset(first, history="qcflag convert a b")
+    lines = second.attrs["history"].splitlines()
+    assert lines[0] == HIST
+    assert lines[1].endswith("qcflag convert a b") and lines[1][:4].isdigit()
+
+
+def test_added_columns_linked_and_read_back_as_extras(tmp_path):
+    b = read_csv(CANONICAL)
+    codes = np.ones(b.n_levels, np.int8)
+    codes[0] = -1
+    argo = SCHEMES["argo"]
+    added = {
+        "temperature_flag_auto": AddedColumn(
+            codes, {"standard_name": "aggregate_quality_flag", "flag_values": argo.values,
+                    "flag_meanings": " ".join(argo.meanings)}, "temperature"),
+        "temperature_flag_auto_reasons": AddedColumn(np.array([""] * b.n_levels, object)),
+    }
+    p = write_netcdf(b, tmp_path / "a.nc", added=added, history=HIST)
+    with netCDF4.Dataset(p) as nc:
+        assert nc["temperature"].ancillary_variables == "temperature_qc temperature_flag_auto"
+        assert nc["temperature_flag_auto"][:].mask[0]
+    back = read_netcdf(p)
+    # the manual flags stay the manual flags; the automatic ones come back as a column
+    np.testing.assert_array_equal(back.flags["temperature"], b.flags["temperature"])
+    assert back.extra["temperature_flag_auto"].tolist()[:2] == ["", "1"]
+    # writing again with the same added names replaces, does not clash
+    write_netcdf(back, tmp_path / "b.nc", added=added, history=HIST)
+
+
+def test_scheme_detected_from_flag_meanings(tmp_path):
+    text = CANONICAL.read_text().replace(",0,0,jd", ",1,1,jd")
+    p = tmp_path / "l20.csv"
+    p.write_text(text.replace(",35.41,4,1,1,jd", ",35.41,A,1,1,jd"))
+    b = read_csv(p, scheme="l20")
+    nc = write_netcdf(b, tmp_path / "l20.nc", history=HIST)
+    back = read_netcdf(nc)  # no scheme given: the file's flag_meanings say L20
+    assert back.scheme == "l20"
+    np.testing.assert_array_equal(back.flags["pressure"], b.flags["pressure"])
+    assert ord("A") in back.flags["pressure"].tolist()
+
+
+def _tiny(tmp_path: Path, *, t_units="degree_Celsius", t=(10.0, 11.0), p_units="dbar",
+          p=(1.0, 2.0), s_units="1", s=(35.0, 35.1), s_std="sea_water_practical_salinity",
+          z_std="sea_water_pressure") -> Path:
+    path = tmp_path / "tiny.nc"
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.featureType = "profile"
+        nc.createDimension("obs", 2)
+        for name, std, units, vals in (("p", z_std, p_units, p), ("t", "sea_water_temperature",
+                                        t_units, t), ("s", s_std, s_units, s)):
+            v = nc.createVariable(name, "f8", ("obs",))
+            v.standard_name = std
+            v.units = units
+            v[:] = vals
+    return path
+
+
+def test_single_profile_without_instance_dimension(tmp_path):
+    b = read_netcdf(_tiny(tmp_path))
+    assert b.n_profiles == 1 and b.pressure.tolist() == [1.0, 2.0]
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "expect"),
+    [
+        ({"t_units": "K", "t": (283.15, 284.15)}, ("temperature", [10.0, 11.0])),
+        ({"p_units": "Pa", "p": (10000.0, 20000.0)}, ("pressure", [1.0, 2.0])),
+        ({"p_units": "bar", "p": (0.1, 0.2)}, ("pressure", [1.0, 2.0])),
+    ],
+)
+def test_labelled_units_converted(tmp_path, kwargs, expect):
+    b = read_netcdf(_tiny(tmp_path, **kwargs))
+    np.testing.assert_allclose(b.values(expect[0]), expect[1], rtol=0, atol=1e-9)
+    assert b.attrs["notes"]
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "needle"),
+    [
+        ({"t": (283.0, 284.0)}, "kelvin"),
+        ({"t_units": "K"}, "looks like degrees Celsius"),
+        ({"p": (1e5, 2e7)}, "pascal"),
+        ({"p_units": "m"}, "a depth"),
+        ({"s_units": "S m-1", "s": (4.2, 4.3)}, "conductivity"),
+        ({"s_std": "sea_water_electrical_conductivity"}, None),
+        ({"t_units": "furlongs"}, "unknown units"),
+    ],
+)
+def test_plainly_wrong_units_refused(tmp_path, kwargs, needle):
+    path = _tiny(tmp_path, **kwargs)
+    if needle is None:  # conductivity is not found as salinity at all
+        with pytest.raises(InputFileError, match="no salinity variable"):
+            read_netcdf(path)
+        return
+    with pytest.raises(UnitsError, match=needle) as err:
+        read_netcdf(path)
+    assert str(path) in str(err.value)
+
+
+def test_depth_variable_converted_with_gsw(tmp_path):
+    import gsw
+
+    path = _tiny(tmp_path, z_std="depth", p_units="m", p=(100.0, 2000.0))
+    b = read_netcdf(path)  # no latitude: p_from_z with NaN latitude gives NaN
+    assert np.isnan(b.pressure).all()
+    with netCDF4.Dataset(path, "a") as nc:
+        v = nc.createVariable("lat", "f8", ())
+        v.standard_name = "latitude"
+        v[...] = 30.0
+    b = read_netcdf(path)
+    # reference: TEOS-10 gsw.p_from_z(z=-depth, lat)
+    np.testing.assert_allclose(b.pressure, gsw.p_from_z(-np.array([100.0, 2000.0]), 30.0),
+                               rtol=1e-12)
+
+
+def test_from_decoded_dataset_matches_raw():
+    with xr.open_dataset(DATA / "layout_incomplete.nc") as ds:
+        decoded = from_dataset(ds.load(), source="mem")
+    raw = read_netcdf(DATA / "layout_incomplete.nc")
+    for v in ("pressure", "temperature", "salinity"):
+        np.testing.assert_array_equal(decoded.values(v), raw.values(v))
+        np.testing.assert_array_equal(decoded.flags[v], raw.flags[v])
+    assert decoded.profiles["time"].tolist() == raw.profiles["time"].tolist()
+
+
+@pytest.mark.parametrize("content", [b"profile_id,cruise\n1,2\n", b"\x00\x01garbage" * 10])
+def test_not_netcdf(tmp_path, content):
+    p = tmp_path / "x.nc"
+    p.write_bytes(content)
+    with pytest.raises(InputFileError, match="not a NetCDF file"):
+        read_netcdf(p)
+
+
+def test_truncated_netcdf(tmp_path):
+    src = (DATA / "layout_contiguous.nc").read_bytes()
+    p = tmp_path / "t.nc"
+    p.write_bytes(src[: len(src) // 2])
+    with pytest.raises(InputFileError, match="truncated or corrupt") as err:
+        read_netcdf(p)
+    assert "\n" not in str(err.value)
+
+
+def test_file_with_no_levels(tmp_path):
+    path = _tiny(tmp_path, p=(np.nan, np.nan), t=(np.nan, np.nan), s=(np.nan, np.nan))
+    with pytest.raises(InputFileError, match="no levels"):
+        read_netcdf(path)
+
+
+def test_empty_profiles_dropped(tmp_path):
+    b = read_csv(CANONICAL)
+    ds = to_dataset(b, history=HIST)
+    rs = ds["row_size"].values.copy()
+    ds2 = ds.isel(profile=[0, 1, 2, 0])
+    rs = np.append(rs, 0)
+    ds2["row_size"] = ("profile", rs, ds["row_size"].attrs)
+    out = from_dataset(ds2, source="mem")
+    assert out.n_profiles == 3 and out.attrs["dropped_profiles"] == 1
