@@ -18,6 +18,10 @@ from qcflag.exceptions import (
 from qcflag.profiles import ProfileBatch
 from qcflag.schemes import Grade, State, get_scheme
 
+# Registers the ``ds.qcflag`` xarray accessor; flag_dataset is the same door as a function.
+from qcflag import accessor as _accessor  # noqa: F401  isort: skip
+from qcflag.chain import check_dataset, flag_dataset  # isort: skip
+
 __all__ = [
     "Grade",
     "InputFileError",
@@ -29,6 +33,8 @@ __all__ = [
     "State",
     "UnitsError",
     "__version__",
+    "check_dataset",
+    "flag_dataset",
     "get_scheme",
     "show_versions",
 ]
