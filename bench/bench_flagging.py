@@ -1,0 +1,181 @@
+"""End-to-end flagging benchmark: NetCDF files in, flagged NetCDF files out.
+
+Figures, all measured in this one run on this machine:
+
+* end-to-end throughput of ``flag_files_parallel(workers=1)`` (read, check, combine,
+  write; one process) on the large archive, levels per second, and that process's peak
+  resident memory (``os.wait4`` rusage of the child process);
+* cost growth from the small to the large archive (10x the levels): the ratio of the
+  per-level times (1.0 = linear);
+* speed-up from 1 to 2 worker processes (dask LocalCluster, start-up included) on the
+  small archive;
+* the vectorised ``flag_batch`` against the straightforward loop that calls it one
+  profile at a time, on the same profiles.
+
+The archive is invented (qcflag.simulate): a few simulated cruises written once as CF
+NetCDF, then copied under new names until the archive holds the wanted number of levels
+(flagging cost does not depend on the values being new). Sizes: 1 and 10 million levels;
+``quick`` uses 0.1 and 1 million.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HISTORY = "2000-01-01T00:00:00Z qcflag bench"
+TARGETS = {
+    "levels_per_second": 300_000.0,
+    "peak_memory_gib": 2.0,
+    "speedup_2_workers": 1.6,
+    "cost_growth": 1.15,  # per-level cost at 10x within 15 % of 1x counts as linear
+}
+
+_CHILD = r"""
+import json, sys, time
+from qcflag.scale import flag_files_parallel
+spec = json.load(open(sys.argv[1]))
+t0 = time.perf_counter()
+s = flag_files_parallel(spec["files"], spec["out"], workers=spec["workers"],
+                        history=spec["history"], progress=False, overwrite=True)
+print(json.dumps({"seconds": time.perf_counter() - t0, "n_levels": s.n_levels}))
+"""
+
+
+def make_archive(folder: Path, n_levels: int, *, seed: int = 0) -> list[Path]:
+    """Write at least `n_levels` levels of invented profiles as NetCDF files in `folder`."""
+    from qcflag.io import write
+    from qcflag.simulate import simulate_archive
+
+    folder.mkdir(parents=True, exist_ok=True)
+    base = simulate_archive(4, seed=seed)
+    cruises = base.profiles["cruise"].to_numpy()
+    originals: list[tuple[Path, int]] = []
+    for c in sorted(set(cruises)):
+        sub = base.select(cruises == c)
+        p = folder / f"{c}_r0000.nc"
+        write(sub, p, overwrite=True, history=HISTORY)
+        originals.append((p, sub.n_levels))
+    files = [p for p, _ in originals]
+    total = sum(n for _, n in originals)
+    k = 1
+    while total < n_levels:
+        for p, n in originals:
+            if total >= n_levels:
+                break
+            q = folder / p.name.replace("_r0000", f"_r{k:04d}")
+            shutil.copyfile(p, q)
+            files.append(q)
+            total += n
+        k += 1
+    return files
+
+
+def run_child(files: list[Path], out: Path, workers: int) -> dict[str, float]:
+    """Flag `files` in a fresh interpreter; return its wall time and peak RSS."""
+    spec = out.parent / f"{out.name}.json"
+    spec.write_text(json.dumps({"files": [str(f) for f in files], "out": str(out),
+                                "workers": workers, "history": HISTORY}))
+    log_out, log_err = out.parent / f"{out.name}.out", out.parent / f"{out.name}.err"
+    with log_out.open("w") as fo, log_err.open("w") as fe:
+        t0 = time.perf_counter()
+        proc = subprocess.Popen([sys.executable, "-c", _CHILD, str(spec)], stdout=fo,
+                                stderr=fe)
+        # os.wait4 gives this child's own resource usage, including its peak RSS (KiB)
+        _, status, usage = os.wait4(proc.pid, 0)
+        wall = time.perf_counter() - t0
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    stdout, stderr = log_out.read_text(), log_err.read_text()
+    maxrss_kib = usage.ru_maxrss
+    if proc.returncode != 0:
+        raise RuntimeError(f"benchmark child failed:\n{stderr[-3000:]}")
+    info = json.loads(stdout.strip().splitlines()[-1])
+    return {"seconds": float(info["seconds"]), "wall": wall, "n_levels": info["n_levels"],
+            "maxrss_gib": maxrss_kib / 2**20}
+
+
+def loop_ratio(n_profiles: int) -> dict[str, float]:
+    """Time flag_batch on a batch against calling it once per profile."""
+    from qcflag.pipeline import flag_batch
+    from qcflag.simulate import simulate_archive
+
+    batch = simulate_archive(2, seed=3)
+    batch = batch.select(list(range(min(n_profiles, batch.n_profiles))))
+    flag_batch(batch[0])  # warm caches (rule set, reference fields)
+    t0 = time.perf_counter()
+    flag_batch(batch)
+    vec = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    for i in range(batch.n_profiles):
+        flag_batch(batch[i])
+    loop = time.perf_counter() - t0
+    return {"vectorised": vec, "loop": loop, "n_levels": batch.n_levels,
+            "n_profiles": batch.n_profiles}
+
+
+def main(quick: bool = False) -> list[dict[str, object]]:
+    small, large = (100_000, 1_000_000) if quick else (1_000_000, 10_000_000)
+    root = Path(tempfile.mkdtemp(prefix="qcflag-bench-"))
+    rows: list[dict[str, object]] = []
+    try:
+        files_large = make_archive(root / "archive", large)
+        # the small archive is a prefix of the large one (same files, same mix)
+        acc, files_small = 0, []
+        from qcflag.io import read_file
+
+        per_file = {f.name.split("_r")[0]: read_file(f).n_levels for f in files_large[:4]}
+        for f in files_large:
+            files_small.append(f)
+            acc += per_file[f.name.split("_r")[0]]
+            if acc >= small:
+                break
+        print(f"archive: {len(files_small)} / {len(files_large)} files", file=sys.stderr)
+
+        r_small = run_child(files_small, root / "out_small_w1", 1)
+        r_small2 = run_child(files_small, root / "out_small_w2", 2)
+        r_large = run_child(files_large, root / "out_large_w1", 1)
+        lr = loop_ratio(60 if quick else 200)
+
+        lps = r_large["n_levels"] / r_large["seconds"]
+        growth = (r_large["seconds"] / r_large["n_levels"]) / (
+            r_small["seconds"] / r_small["n_levels"])
+        speedup = r_small["seconds"] / r_small2["seconds"]
+        ratio = lr["loop"] / lr["vectorised"]
+        mem = r_large["maxrss_gib"]
+        big = f"{r_large['n_levels'] / 1e6:.1f}M"
+        rows += [
+            {"benchmark": "flagging", "figure": f"end to end, 1 process, {big} levels",
+             "value": lps, "unit": "levels/s",
+             "target": f">= {TARGETS['levels_per_second']:,.0f}",
+             "met": lps >= TARGETS["levels_per_second"]},
+            {"benchmark": "flagging", "figure": f"peak memory, {big} levels (max RSS)",
+             "value": mem, "unit": "GiB", "target": f"< {TARGETS['peak_memory_gib']}",
+             "met": mem < TARGETS["peak_memory_gib"]},
+            {"benchmark": "flagging",
+             "figure": f"speed-up 1 -> 2 workers ({r_small['n_levels'] / 1e6:.1f}M levels)",
+             "value": speedup, "unit": "x", "target": f">= {TARGETS['speedup_2_workers']}",
+             "met": speedup >= TARGETS["speedup_2_workers"]},
+            {"benchmark": "flagging", "figure": "cost per level at 10x / at 1x archive",
+             "value": growth, "unit": "", "target": f"<= {TARGETS['cost_growth']} (linear)",
+             "met": growth <= TARGETS["cost_growth"]},
+            {"benchmark": "flagging",
+             "figure": f"per-profile loop / vectorised ({lr['n_profiles']} profiles)",
+             "value": ratio, "unit": "x", "target": "> 1", "met": ratio > 1},
+            {"benchmark": "flagging", "figure": "1-process seconds: 1x / 10x archive",
+             "value": f"{r_small['seconds']:.1f} / {r_large['seconds']:.1f}", "unit": "s"},
+        ]
+    finally:
+        shutil.rmtree(root, ignore_errors=True)
+    return rows
+
+
+if __name__ == "__main__":
+    quick = "--quick" in sys.argv
+    for row in main(quick=quick):
+        print(row)
