@@ -24,7 +24,7 @@ from pathlib import Path
 from typing import Any
 
 HERE = Path(__file__).resolve().parent
-ORDER = ("bench_checks", "bench_learn", "bench_flagging")
+ORDER = ("bench_io", "bench_checks", "bench_learn", "bench_flagging")
 
 
 def _modules() -> list[Path]:
