@@ -141,3 +141,85 @@ def test_decision_settings_are_checked():
         flag_batch(b, target_recall=0.9)  # needs a model
     with pytest.raises(DecisionError):
         flag_batch(b, caution=0.5, review_budget=0.1)
+
+
+# ------------------------------------------------------------------------------- CLI
+def _write_input(tmp_path, suffix=".csv"):
+    from qcflag.io import write
+
+    b = _batch(4, seed=3)
+    n = b.n_levels
+    flags = {"temperature": np.ones(n, np.int8), "salinity": np.ones(n, np.int8)}
+    extra = pd.DataFrame({"conductivity_raw": np.linspace(30, 40, n)})
+    from dataclasses import replace
+
+    b = replace(b, flags=flags, extra=extra)
+    path = tmp_path / f"casts{suffix}"
+    write(b, path)
+    return path
+
+
+def test_cli_flag_rules_only_csv_keeps_columns_and_adds_three_per_variable(tmp_path):
+    from typer.testing import CliRunner
+
+    from qcflag.cli import app
+
+    src = _write_input(tmp_path)
+    before = src.read_bytes()
+    out = tmp_path / "out.csv"
+    res = CliRunner().invoke(app, ["flag", str(src), "--out", str(out)])
+    assert res.exit_code == 0, res.output
+    assert src.read_bytes() == before  # input untouched
+    inp, got = pd.read_csv(src), pd.read_csv(out)
+    assert list(got.columns[: len(inp.columns)]) == list(inp.columns)
+    pd.testing.assert_frame_equal(got[inp.columns], inp)  # every input column kept as is
+    added = list(got.columns[len(inp.columns):])
+    for var in ("temperature", "salinity"):
+        assert {f"{var}_flag_auto", f"{var}_flag_auto_confidence",
+                f"{var}_flag_auto_reasons"} <= set(added)
+    assert len(added) in (6, 9)  # pressure too where checked
+    assert set(got["temperature_flag_auto"].unique()) <= {1, 2, 3, 4, 9}
+    assert (got["temperature_flag_auto"] == 4).any()
+    # no overwrite without --overwrite: exit 1, one line, no traceback
+    again = CliRunner().invoke(app, ["flag", str(src), "--out", str(out)])
+    assert again.exit_code == 1
+    assert "--overwrite" in again.output and "Traceback" not in again.output
+    ok = CliRunner().invoke(app, ["flag", str(src), "--out", str(out), "--overwrite",
+                                  "--scheme", "ioc"])
+    assert ok.exit_code == 0, ok.output
+    assert set(pd.read_csv(out)["temperature_flag_auto"].unique()) <= {1, 3, 4, 9}
+    bad = CliRunner().invoke(app, ["flag", str(src), "--out", str(tmp_path / "x.csv"),
+                                   "--target-recall", "0.9"])
+    assert bad.exit_code == 1 and "--model" in bad.output
+    usage = CliRunner().invoke(app, ["flag", str(src)])
+    assert usage.exit_code == 2
+
+
+def test_cli_flag_netcdf_has_cf_flag_variables_and_links(tmp_path):
+    import xarray as xr
+    from typer.testing import CliRunner
+
+    from qcflag.cli import app
+
+    srcs = [_write_input(tmp_path / d, ".nc") for d in ("a", "b")]
+    outdir = tmp_path / "flagged"
+    res = CliRunner().invoke(app, ["flag", *map(str, srcs), "--out", str(outdir)])
+    assert res.exit_code != 0  # both inputs are named casts.nc: outputs would collide
+    assert "collide" in res.output
+    res = CliRunner().invoke(app, ["flag", str(srcs[0]), "--out", str(outdir / "o.nc")])
+    assert res.exit_code == 0, res.output
+    with xr.open_dataset(outdir / "o.nc", decode_cf=False) as ds:
+        for var in ("temperature", "salinity"):
+            names = [k for k in ds.variables if k.endswith(f"{var}_flag_auto")]
+            assert names, list(ds.variables)
+            flag = ds[names[0]]
+            # CF §3.5 flags; CF §3.4 ancillary_variables (../shared/reference/
+            # formats-and-conventions.md §1.1-1.2)
+            assert flag.attrs["standard_name"] == "aggregate_quality_flag"
+            vals = np.atleast_1d(flag.attrs["flag_values"])
+            assert vals.dtype == flag.dtype
+            assert len(flag.attrs["flag_meanings"].split()) == vals.size
+            parent = [k for k in ds.variables
+                      if names[0] in str(ds[k].attrs.get("ancillary_variables", "")).split()]
+            assert parent, f"no variable lists {names[0]} in ancillary_variables"
+        assert "qcflag" in ds.attrs.get("history", "")
