@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from qcflag.exceptions import InvalidProfileError
+from qcflag.exceptions import InvalidProfileError, QCFlagError
 from qcflag.schemes import NO_FLAG, decode, get_scheme
 
 if TYPE_CHECKING:
@@ -147,7 +147,12 @@ class ProfileBatch:
             if arr.dtype.kind not in "iu" or arr.shape != (n,):
                 raise InvalidProfileError(f"{name} flags: expected int8 codes of length {n}")
             arr = np.ascontiguousarray(arr, dtype=np.int8)
-            decode(arr, sch, where=f"{name} flags")
+            try:
+                decode(arr, sch, where=f"{name} flags")
+            except InvalidProfileError:
+                raise
+            except QCFlagError as exc:  # documented: inconsistent codes are InvalidProfileError
+                raise InvalidProfileError(str(exc)) from None
             flags[name] = arr
         object.__setattr__(self, "flags", flags)
         if self.extra is not None:
