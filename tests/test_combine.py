@@ -240,3 +240,19 @@ def test_model_reasons_from_attribution():
     out = combine(checks, VAR, proba, attribution=(["a", "b", "c"], contrib))
     assert out.reasons[0] == "spike;model:b;model:a"
     assert out.reasons[1] == ""  # passed: no model reason
+
+
+def test_explain_matches_combine_with_attribution():
+    from qcflag.combine import explain
+
+    rng = np.random.default_rng(5)
+    proba = _dirichlet(rng, 50)
+    checks = _table({"spike": rng.choice([1, 4], 50), "global_range": rng.choice([1, 4], 50,
+                                                                                 p=[0.9, 0.1])})
+    contrib = rng.normal(size=(50, 3))
+    names = ["x", "y", "z"]
+    direct = combine(checks, VAR, proba, attribution=(names, contrib))
+    later = explain(combine(checks, VAR, proba), checks, VAR, (names, contrib))
+    np.testing.assert_array_equal(direct.reasons, later.reasons)
+    np.testing.assert_array_equal(direct.grade, later.grade)
+    assert any("model:" in r for r in later.reasons)
