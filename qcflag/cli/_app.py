@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import functools
 import sys
+import warnings
 from collections.abc import Callable
 from typing import Any, TypeVar
 
@@ -36,11 +37,35 @@ def fail(message: str, code: int = 1) -> typer.Exit:
     return typer.Exit(code=code)
 
 
+def _print_warnings(caught: list[warnings.WarningMessage]) -> None:
+    """Print each distinct warning as one ``warning:`` line on stderr (no source line)."""
+    seen: set[str] = set()
+    for w in caught:
+        text = " ".join(str(w.message).split())
+        if w.category.__module__.split(".")[0] != "qcflag":
+            text = f"{w.category.__name__}: {text}"
+        if text not in seen:
+            seen.add(text)
+            err_console.print(f"warning: {text}", markup=False)
+
+
 def guard(func: F) -> F:
-    """Run a command, turning qcflag and OS errors into one line and exit code 1."""
+    """Run a command, turning qcflag and OS errors into one line and exit code 1.
+
+    Warnings raised while the command runs (e.g. rows dropped from a file cut mid-line) are
+    printed as one ``warning:`` line each, without Python's source-line echo.
+    """
 
     @functools.wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("default")
+            try:
+                return _run(*args, **kwargs)
+            finally:
+                _print_warnings(caught)
+
+    def _run(*args: Any, **kwargs: Any) -> Any:
         try:
             return func(*args, **kwargs)
         except QCFlagError as exc:
