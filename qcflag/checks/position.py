@@ -116,8 +116,9 @@ def date(
     -------
     dict of str to CheckResult
         Keyed by ``"temperature"``, ``"salinity"``, ``"pressure"``. Statistic: days outside
-        the allowed window, ``max(earliest - time, time - now)`` (zero or negative inside);
-        NaN where the time is missing.
+        the allowed window, ``time - now`` after `now`, else ``earliest - time`` (zero or
+        negative inside, and independent of the current time there); NaN where the time is
+        missing.
     """
     t = batch.profiles["time"].to_numpy().astype("datetime64[ns]")
     lo = np.datetime64(pd.Timestamp(earliest).tz_localize(None), "ns")
@@ -127,7 +128,9 @@ def date(
     day = np.timedelta64(86_400_000_000_000, "ns")
     before = (lo - t) / day
     after = (t - hi) / day
-    stat = np.where(missing, np.nan, np.maximum(before, after))
+    # after `now`: days past it; otherwise days before `earliest` (negative inside the window),
+    # so the statistic (a learning feature) does not change with the clock
+    stat = np.where(missing, np.nan, np.where(t > hi, after, before))
     bad = missing | (t < lo) | (t > hi)
     grade = np.where(bad, 4, 1).astype(np.int8)
     return _spread(batch, stat.astype(np.float64), grade, per_profile=True)
