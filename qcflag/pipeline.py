@@ -11,7 +11,6 @@ programme's own standards prevail.
 
 from __future__ import annotations
 
-import datetime as _dt
 import json
 import os
 import sys
@@ -378,8 +377,9 @@ class FlagSummary:
 
 def _history_line(command: str | None) -> str:
     from qcflag._version import __version__
+    from qcflag.io.common import utc_timestamp
 
-    now = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    now = utc_timestamp()  # honours SOURCE_DATE_EPOCH for reproducible outputs
     cmd = command if command is not None else " ".join(["qcflag", *sys.argv[1:]])
     return f"{now} qcflag {__version__}: {cmd}"
 

@@ -42,6 +42,7 @@ __all__ = [
     "format_times",
     "normalise_units",
     "to_ns",
+    "utc_timestamp",
 ]
 
 
@@ -313,3 +314,35 @@ def to_ns(times: Any) -> NDArray[np.datetime64]:
     if t.tz is not None:
         t = t.tz_convert("UTC").tz_localize(None)
     return np.asarray(t.as_unit("ns").to_numpy(), dtype="datetime64[ns]")
+
+
+def utc_timestamp() -> str:
+    """Return the UTC time as ``YYYY-MM-DDThh:mm:ssZ`` for history and ``date_created``.
+
+    When the environment variable ``SOURCE_DATE_EPOCH`` holds an integer (seconds since
+    1970-01-01 UTC; the reproducible-builds convention, reproducible-builds.org), that time
+    is used instead, so that reruns write byte-identical NetCDF files.
+
+    Returns
+    -------
+    str
+
+    Raises
+    ------
+    QCFlagError
+        If ``SOURCE_DATE_EPOCH`` is set but is not a non-negative integer.
+    """
+    import os
+    from datetime import UTC, datetime
+
+    epoch = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
+    if epoch:
+        if not epoch.isdigit():
+            from qcflag.exceptions import QCFlagError
+
+            raise QCFlagError(f"SOURCE_DATE_EPOCH={epoch!r} is not a whole number of seconds "
+                              "since 1970-01-01; unset it or give e.g. 1700000000")
+        when = datetime.fromtimestamp(int(epoch), UTC)
+    else:
+        when = datetime.now(UTC)
+    return when.strftime("%Y-%m-%dT%H:%M:%SZ")

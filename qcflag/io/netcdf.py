@@ -33,7 +33,6 @@ import os
 import re
 import sys
 from collections.abc import Mapping
-from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -49,6 +48,7 @@ from qcflag.io.common import (
     normalise_units,
     time_resolution,
     to_ns,
+    utc_timestamp,
 )
 from qcflag.profiles import LEVEL_VARIABLES, META_COLUMNS, ProfileBatch
 from qcflag.schemes import NO_FLAG, SCHEMES, get_scheme, parse_codes
@@ -799,7 +799,7 @@ def history_line(history: str | None = None) -> str:
     """
     if history and _TS.match(history):
         return history
-    ts = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    ts = utc_timestamp()
     cmd = history or " ".join(["qcflag", *sys.argv[1:]])
     return f"{ts} qcflag {__version__}: {cmd}"
 
