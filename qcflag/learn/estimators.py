@@ -53,6 +53,7 @@ European Conference on Machine Learning, LNCS 2167, 145-156.
 
 from __future__ import annotations
 
+import warnings
 from typing import TYPE_CHECKING, Any, ClassVar, Literal
 
 import numpy as np
@@ -219,15 +220,22 @@ class _GradeEstimator(ClassifierMixin, BaseEstimator):
 
 def _fit_scaling(
     X: NDArray[np.float64],
-) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], Any, Any]:
-    """Fit SimpleImputer(median) + StandardScaler; return their statistics and objects."""
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], list[Any]]:
+    """Fit SimpleImputer(median) -> arcsinh -> StandardScaler; statistics and fitted steps.
+
+    Check statistics are heavy-tailed (a gross spike is thousands of times a small one); the
+    arcsinh (a signed logarithm for large values, linear near zero) keeps a few extreme
+    levels from dominating the linear fits and keeps the optimisation well conditioned.
+    """
     from sklearn.impute import SimpleImputer
-    from sklearn.preprocessing import StandardScaler
+    from sklearn.preprocessing import FunctionTransformer, StandardScaler
 
     imp = SimpleImputer(strategy="median", keep_empty_features=True).fit(X)
-    sc = StandardScaler().fit(imp.transform(X))
+    ash = FunctionTransformer(np.arcsinh).fit(X)
+    sc = StandardScaler().fit(np.arcsinh(imp.transform(X)))
+    steps = [("impute", imp), ("arcsinh", ash), ("scale", sc)]
     return (np.asarray(imp.statistics_, dtype=np.float64), sc.mean_.astype(np.float64),
-            sc.scale_.astype(np.float64), imp, sc)
+            sc.scale_.astype(np.float64), steps)
 
 
 def _standardise(
@@ -235,9 +243,33 @@ def _standardise(
     scale: NDArray[np.float64],
 ) -> NDArray[np.float64]:
     Z = np.where(np.isnan(X), fill, X)
+    np.arcsinh(Z, out=Z)
     Z -= mean
     Z /= scale
     return Z
+
+
+def _subsample(
+    y_idx: NDArray[np.int64], sw: NDArray[np.float64], max_samples: int | None, seed: int
+) -> tuple[NDArray[np.int64], NDArray[np.float64]]:
+    """Keep every level of the rarer classes and a random share of the commonest one.
+
+    The kept levels of the commonest class are up-weighted by the inverse of the share, so
+    the weighted fit estimates the same model as the full data.
+    """
+    n = y_idx.size
+    if max_samples is None or n <= max_samples:
+        return np.arange(n), sw
+    counts = np.bincount(y_idx)
+    major = int(counts.argmax())
+    others = np.flatnonzero(y_idx != major)
+    pool = np.flatnonzero(y_idx == major)
+    n_keep = min(pool.size, max(max_samples - others.size, max_samples // 10))
+    rng = np.random.default_rng(seed)
+    pick = rng.choice(pool, size=n_keep, replace=False)
+    idx = np.sort(np.concatenate([others, pick]))
+    w = sw[idx] * np.where(y_idx[idx] == major, pool.size / n_keep, 1.0)
+    return idx, w
 
 
 # --------------------------------------------------------------------------- baselines
@@ -375,8 +407,8 @@ class OrdinalLogistic(_GradeEstimator):
     """Ordinal logistic regression (``mord``) after imputation and scaling.
 
     The model is ``P(y <= k | x) = sigmoid(theta_k - w . z)`` with ``z`` the median-imputed,
-    standardised features: one weight vector and ordered thresholds, so a larger ``w . z``
-    moves probability toward worse grades.
+    arcsinh-transformed, standardised features: one weight vector and ordered thresholds,
+    so a larger ``w . z`` moves probability toward worse grades.
 
     Parameters
     ----------
@@ -385,8 +417,13 @@ class OrdinalLogistic(_GradeEstimator):
         immediate-threshold (``mord.LogisticIT``, a surrogate of the 0-1 loss) loss.
     alpha : float, default=1.0
         L2 regularisation strength.
-    max_iter : int, default=1000
-        L-BFGS-B iterations.
+    max_iter : int, default=200
+        L-BFGS-B iterations (``mord`` runs to a tolerance of 1e-12, so this is the budget).
+    max_samples : int or None, default=200_000
+        Fit on at most about this many levels: every level of the rarer grades and a random
+        share of the commonest grade, up-weighted by the inverse share (``mord``'s optimiser
+        is single-threaded numpy; this bounds training time on big archives). None fits on
+        all levels.
     class_weight : {"sqrt", "balanced"} or None, default="sqrt"
         Sample weighting against class imbalance (see the module docstring).
     classes : sequence of int or None, default=(1, 2, 3, 4)
@@ -399,12 +436,12 @@ class OrdinalLogistic(_GradeEstimator):
     seen_ : ndarray of bool, shape (n_classes,)
         Which classes occurred in the training labels (others get probability 0).
     pipeline_ : sklearn.pipeline.Pipeline or None
-        The fitted SimpleImputer + StandardScaler + mord pipeline (None after loading a model
-        file; prediction uses the arrays below, which the pipeline produced).
+        The fitted SimpleImputer + arcsinh + StandardScaler + mord pipeline (None after
+        loading a model file; prediction uses the arrays below, which the pipeline produced).
     fill_ : ndarray of shape (n_features,)
         Imputation value (training median) of each feature.
     mean_, scale_ : ndarray of shape (n_features,)
-        Standardisation applied after imputation.
+        Standardisation applied after imputation and arcsinh.
     coef_ : ndarray of shape (n_features,)
         Weights ``w`` on the standardised features.
     theta_ : ndarray of shape (n_seen - 1,)
@@ -422,13 +459,15 @@ class OrdinalLogistic(_GradeEstimator):
         kind: Literal["at", "it"] = "at",
         alpha: float = 1.0,
         *,
-        max_iter: int = 1000,
+        max_iter: int = 200,
+        max_samples: int | None = 200_000,
         class_weight: ClassWeight = "sqrt",
         classes: ArrayLike | None = GRADES,
     ) -> None:
         self.kind = kind
         self.alpha = alpha
         self.max_iter = max_iter
+        self.max_samples = max_samples
         self.class_weight = class_weight
         self.classes = classes
 
@@ -460,7 +499,7 @@ class OrdinalLogistic(_GradeEstimator):
         sw = _class_sample_weight(y_idx, self.class_weight)
         seen = np.flatnonzero(self.seen_)
         y_seen = np.searchsorted(seen, y_idx)
-        fill, mean, scale, imp, sc = _fit_scaling(X)
+        fill, mean, scale, steps = _fit_scaling(X)
         self.fill_, self.mean_, self.scale_ = fill, mean, scale
         if seen.size < 2:
             self.pipeline_ = None
@@ -469,8 +508,9 @@ class OrdinalLogistic(_GradeEstimator):
             return self
         model_cls = mord.LogisticAT if self.kind == "at" else mord.LogisticIT
         ordinal = model_cls(alpha=self.alpha, max_iter=self.max_iter)
-        pipe = Pipeline([("impute", imp), ("scale", sc), ("ordinal", ordinal)])
-        ordinal.fit(_standardise(X, fill, mean, scale), y_seen, sample_weight=sw)
+        pipe = Pipeline([*steps, ("ordinal", ordinal)])
+        rows, w = _subsample(y_seen, sw, self.max_samples, 0)
+        ordinal.fit(_standardise(X[rows], fill, mean, scale), y_seen[rows], sample_weight=w)
         self.pipeline_ = pipe
         self.coef_ = np.asarray(ordinal.coef_, dtype=np.float64)
         self.theta_ = np.asarray(ordinal.theta_, dtype=np.float64)
@@ -522,7 +562,7 @@ class NominalLogistic(_GradeEstimator):
     pipeline_ : sklearn.pipeline.Pipeline or None
         The fitted imputer + scaler + LogisticRegression (None after loading).
     fill_, mean_, scale_ : ndarray of shape (n_features,)
-        Imputation and standardisation statistics.
+        Imputation and standardisation (after arcsinh) statistics.
     coef_ : ndarray of shape (n_seen, n_features)
         Weights per seen class (softmax parametrisation).
     intercept_ : ndarray of shape (n_seen,)
@@ -559,7 +599,7 @@ class NominalLogistic(_GradeEstimator):
         X, y = self._validate_fit(X, y)
         y_idx = self._encode_labels(y)
         sw = _class_sample_weight(y_idx, self.class_weight)
-        fill, mean, scale, imp, sc = _fit_scaling(X)
+        fill, mean, scale, steps = _fit_scaling(X)
         self.fill_, self.mean_, self.scale_ = fill, mean, scale
         n_seen = int(self.seen_.sum())
         if n_seen < 2:
@@ -567,9 +607,13 @@ class NominalLogistic(_GradeEstimator):
             self.coef_ = np.zeros((1, X.shape[1]))
             self.intercept_ = np.zeros(1)
             return self
+        from sklearn.exceptions import ConvergenceWarning
+
         lr = LogisticRegression(C=self.C, max_iter=self.max_iter)
-        lr.fit(_standardise(X, fill, mean, scale), y_idx, sample_weight=sw)
-        self.pipeline_ = Pipeline([("impute", imp), ("scale", sc), ("logistic", lr)])
+        with warnings.catch_warnings():  # a baseline; n_iter_ tells whether it converged
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            lr.fit(_standardise(X, fill, mean, scale), y_idx, sample_weight=sw)
+        self.pipeline_ = Pipeline([*steps, ("logistic", lr)])
         coef = np.asarray(lr.coef_, dtype=np.float64)
         icpt = np.asarray(lr.intercept_, dtype=np.float64)
         if n_seen == 2:  # binary: one row for the second class; softmax-equivalent form
@@ -676,8 +720,11 @@ class CumulativeBoostedClassifier(_GradeEstimator):
         y_idx = self._encode_labels(y)
         sw = _class_sample_weight(y_idx, self.class_weight)
         seen = np.flatnonzero(self.seen_)
+        # all-NaN columns carry nothing and trip HGB's binning; fit on the others
+        usable = np.flatnonzero(~np.isnan(X).all(axis=0))
+        Xu = X[:, usable] if usable.size < X.shape[1] else X
         self.ensembles_ = []
-        for k in seen[:-1]:
+        for k in seen[:-1] if usable.size else []:
             hgb = HistGradientBoostingClassifier(
                 max_iter=self.max_iter,
                 learning_rate=self.learning_rate,
@@ -687,8 +734,12 @@ class CumulativeBoostedClassifier(_GradeEstimator):
                 early_stopping=False,
                 random_state=self.random_state,
             )
-            hgb.fit(X, (y_idx > k).astype(np.int64), sample_weight=sw)
-            self.ensembles_.append(TreeEnsemble.from_sklearn(hgb))
+            hgb.fit(Xu, (y_idx > k).astype(np.int64), sample_weight=sw)
+            self.ensembles_.append(
+                TreeEnsemble.from_sklearn(hgb, feature_map=usable, n_features=X.shape[1]))
+        if seen.size > 1 and not self.ensembles_:  # no usable feature: class priors
+            self.seen_ = np.zeros_like(self.seen_)
+            self.seen_[int(np.bincount(y_idx).argmax())] = True
         return self
 
     def cumulative_proba(self, X: ArrayLike) -> NDArray[np.float64]:

@@ -118,11 +118,15 @@ class CVReport:
     info : dict
         ``variable -> {"method", "n_folds", "n_groups", "n_levels", "holdout_groups",
         "fold_groups"}``.
+    oof : dict
+        ``variable -> model -> ndarray (n_levels, 4)`` out-of-fold probabilities of the
+        models asked for (NaN rows for held-out levels); not part of :meth:`to_dict`.
     """
 
     folds: dict[str, dict[str, list[dict[str, Any]]]] = field(default_factory=dict)
     holdout: dict[str, dict[str, dict[str, Any]]] = field(default_factory=dict)
     info: dict[str, dict[str, Any]] = field(default_factory=dict)
+    oof: dict[str, dict[str, NDArray[np.float64]]] = field(default_factory=dict)
 
     @property
     def variables(self) -> list[str]:
@@ -149,6 +153,7 @@ class CVReport:
                 out.folds[key] = rep.folds[v]
                 out.holdout[key] = rep.holdout.get(v, {})
                 out.info[key] = rep.info.get(v, {})
+                out.oof[key] = rep.oof.get(v, {})
         return out
 
     def table(self, metrics: Iterable[str] = SUMMARY_METRICS, *, text: bool = False
@@ -242,6 +247,7 @@ def grouped_cross_validate(
     holdout: Iterable[Any] | None = None,
     false_alarm: float = 0.01,
     variable: str = "grade",
+    oof_models: Iterable[str] = (),
 ) -> CVReport:
     """Cross-validate grade models by whole groups and score them side by side.
 
@@ -266,6 +272,8 @@ def grouped_cross_validate(
         False-alarm rate of ``recall_at_far``.
     variable : str, default="grade"
         Name of the variable in the report.
+    oof_models : iterable of str, default=()
+        Models whose out-of-fold probabilities are kept in ``report.oof``.
 
     Returns
     -------
@@ -292,6 +300,8 @@ def grouped_cross_validate(
     splits, method = make_folds(y[cv_idx], groups[cv_idx], folds, seed)
     report = CVReport()
     report.folds[variable] = {name: [] for name in estimators}
+    keep_oof = [m for m in oof_models if m in estimators]
+    report.oof[variable] = {m: np.full((y.size, 4), np.nan) for m in keep_oof}
     fold_groups = []
     for tr, va in splits:
         tr_i, va_i = cv_idx[tr], cv_idx[va]
@@ -300,6 +310,8 @@ def grouped_cross_validate(
             model = clone(est).fit(X[tr_i], y[tr_i], groups=groups[tr_i])
             proba = model.predict_proba(X[va_i])
             pred = model.predict(X[va_i])
+            if name in report.oof[variable]:
+                report.oof[variable][name][va_i] = proba
             report.folds[variable][name].append(
                 score_grades(y[va_i], proba, pred, false_alarm=false_alarm))
     report.holdout[variable] = {}

@@ -96,8 +96,22 @@ class TreeEnsemble:
 
     # ---------------------------------------------------------------- building
     @classmethod
-    def from_sklearn(cls, model: HistGradientBoostingClassifier) -> TreeEnsemble:
-        """Extract the arrays of a fitted binary HistGradientBoostingClassifier."""
+    def from_sklearn(
+        cls, model: HistGradientBoostingClassifier, *,
+        feature_map: NDArray[np.int64] | None = None, n_features: int | None = None,
+    ) -> TreeEnsemble:
+        """Extract the arrays of a fitted binary HistGradientBoostingClassifier.
+
+        Parameters
+        ----------
+        model : HistGradientBoostingClassifier
+            Fitted on a binary target.
+        feature_map : ndarray of int, optional
+            Column of the full input matrix for each column the model was fitted on (when
+            it was fitted on a subset of columns).
+        n_features : int, optional
+            Columns of the full input matrix (default: the model's).
+        """
         if getattr(model, "n_trees_per_iteration_", 1) != 1:
             raise ValueError("only binary HistGradientBoostingClassifier models are supported")
         trees = [it[0].nodes for it in model._predictors]
@@ -114,7 +128,8 @@ class TreeEnsemble:
 
             allnodes = np.zeros(0, dtype=PREDICTOR_RECORD_DTYPE)
         nodes = {
-            "feature": allnodes["feature_idx"].astype(np.int64),
+            "feature": (allnodes["feature_idx"].astype(np.int64) if feature_map is None
+                        else np.asarray(feature_map, dtype=np.int64)[allnodes["feature_idx"]]),
             "threshold": allnodes["num_threshold"].astype(np.float64),
             "missing_left": allnodes["missing_go_to_left"].astype(bool),
             "left": allnodes["left"].astype(np.int64),
@@ -131,7 +146,8 @@ class TreeEnsemble:
             nodes["value"], nodes["count"], depth,
         )
         baseline = float(np.asarray(model._baseline_prediction).ravel()[0])
-        return cls(baseline, offsets, nodes, int(model.n_features_in_))
+        nf = int(model.n_features_in_ if n_features is None else n_features)
+        return cls(baseline, offsets, nodes, nf)
 
     def validate(self) -> None:
         """Check shapes, dtypes and that every child index points inside its own tree.
