@@ -41,13 +41,19 @@ _UNITS = {"temperature": "\u00b0C", "salinity": "PSS-78", "pressure": "dbar"}
 _GRADE_ORDER = (1, 2, 3, 4, NO_GRADE)
 
 
-def new_figure(width: float, height: float) -> Figure:
-    """Return a :class:`~matplotlib.figure.Figure` on the Agg canvas (no pyplot)."""
+def new_figure(width: float, height: float, **adjust: float) -> Figure:
+    """Return a :class:`~matplotlib.figure.Figure` on the Agg canvas (no pyplot).
+
+    Margins are fixed (``adjust`` goes to :meth:`~matplotlib.figure.Figure.subplots_adjust`)
+    rather than solved by a layout engine, which would draw every figure twice.
+    """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(width, height), layout="constrained")
+    fig = Figure(figsize=(width, height))
     FigureCanvasAgg(fig)
+    if adjust:
+        fig.subplots_adjust(**adjust)
     return fig
 
 
@@ -167,7 +173,7 @@ def plot_profile_variable(
     ga = np.asarray(auto_grade, dtype=np.int64)
     gm = np.asarray(manual_grade, dtype=np.int64)
     if ax is None:
-        fig = new_figure(3.4, 4.2)
+        fig = new_figure(3.4, 4.2, left=0.2, right=0.97, bottom=0.12, top=0.95, wspace=0.08)
         ax, manual_ax = fig.subplots(1, 2, sharey=True, width_ratios=[5, 1])
     elif manual_ax is None:
         manual_ax = ax.inset_axes((1.02, 0.0, 0.12, 1.0), sharey=ax)
@@ -217,9 +223,11 @@ def plot_profile_figure(
     plots : dict of str to ProfilePlot
     """
     names = list(variables)
-    fig = new_figure(2.0 + 2.6 * len(names), 4.0)
+    width = 1.0 + 2.6 * len(names)
+    fig = new_figure(width, 3.8, left=0.75 / width, right=1 - 0.1 / width, bottom=0.13,
+                     top=0.9, wspace=0.08)
     ratios = [5, 1] * len(names)
-    axes = fig.subplots(1, 2 * len(names), sharey=True, width_ratios=ratios)
+    axes = fig.subplots(1, 2 * len(names), sharey=True, width_ratios=ratios, squeeze=False)[0]
     plots = {}
     for i, name in enumerate(names):
         vals, ga, gm = variables[name]
@@ -228,6 +236,7 @@ def plot_profile_figure(
         )
         if i:
             axes[2 * i].set_ylabel("")
+            axes[2 * i].tick_params(axis="y", labelleft=False)
     if title:
         fig.suptitle(title, fontsize=10)
     return fig, plots
@@ -418,7 +427,7 @@ def plot_station_map(
     lat = np.asarray(latitude, dtype=np.float64)
     g = np.asarray(grade, dtype=np.int64)
     if ax is None:
-        ax = new_figure(6.5, 5.0).subplots()
+        ax = new_figure(6.5, 5.0, left=0.1, right=0.95, bottom=0.1, top=0.95).subplots()
     extent = _map_extent(lon, lat)
     artists: list[Any] = []
     levels: list[float] = []
@@ -594,7 +603,7 @@ def plot_ts_diagram(
     good = np.isfinite(SA) & np.isfinite(CT)
     idx, SA, CT, gd = idx[good], SA[good], CT[good], g[ok][good]
     if ax is None:
-        ax = new_figure(5.5, 4.6).subplots()
+        ax = new_figure(5.5, 4.6, left=0.13, right=0.97, bottom=0.11, top=0.93).subplots()
     artists: list[Any] = []
     sa_grid = ct_grid = np.zeros(0)
     sig = np.zeros((0, 0))
@@ -616,7 +625,7 @@ def plot_ts_diagram(
                             linewidths=0.6, zorder=1)
             ax.clabel(cs, fmt="%.2f" if step < 0.5 else "%.1f", fontsize=7)
             artists.append(cs)
-        artists += _scatter_by_grade(ax, SA, CT, gd, size=12)
+        artists += _scatter_by_grade(ax, SA, CT, gd, size=16)
         ax.set_xlim(sa_grid[0], sa_grid[-1])
         ax.set_ylim(ct_grid[0], ct_grid[-1])
     ax.set_xlabel("Absolute Salinity $S_A$ (g/kg)")

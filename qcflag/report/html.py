@@ -39,7 +39,7 @@ if TYPE_CHECKING:
     from qcflag.report.figures import Bathymetry
     from qcflag.result import FlagResult
 
-__all__ = ["build_cruise_page", "to_jsonable", "write_reports"]
+__all__ = ["build_cruise_page", "move_into_place", "to_jsonable", "write_reports"]
 
 MAX_DISAGREEMENT_ROWS = 300
 """Disagreements listed on a page (highest review score first); the JSON keeps them all."""
@@ -190,7 +190,7 @@ def build_cruise_page(
     ids = b.profiles["profile_id"].astype(str).tolist()
     lon_p = b.profiles["longitude"].to_numpy(dtype=float)
     lat_p = b.profiles["latitude"].to_numpy(dtype=float)
-    map_fig = new_figure(6.5, 5.0)
+    map_fig = new_figure(6.5, 5.0, left=0.1, right=0.97, bottom=0.09, top=0.97)
     smap = plot_station_map(lon_p, lat_p, ids, cd.worst_auto_per_profile(),
                             bathymetry=bathymetry, ax=map_fig.subplots())
     map_png = figure_to_data_uri(map_fig, dpi=90)
@@ -199,7 +199,7 @@ def build_cruise_page(
     ts_grade = np.zeros(b.n_levels, dtype=np.int64)
     for v in plot_vars:
         ts_grade = np.maximum(ts_grade, cd.auto[v])
-    ts_fig = new_figure(5.5, 4.6)
+    ts_fig = new_figure(5.5, 4.6, left=0.13, right=0.97, bottom=0.11, top=0.93)
     ts = plot_ts_diagram(b.salinity, b.temperature, b.pressure, b.per_level("longitude"),
                          b.per_level("latitude"), ts_grade, ax=ts_fig.subplots())
     ts_png = figure_to_data_uri(ts_fig, dpi=90)
@@ -222,7 +222,7 @@ def build_cruise_page(
             "n_levels": int(off[i + 1] - off[i]),
             "time": "" if pd.isna(times.iloc[i]) else times.iloc[i].strftime("%Y-%m-%d %H:%M"),
             "position": f"{_fmt(lat_p[i], 3)}\u00b0N {_fmt(lon_p[i], 3)}\u00b0E",
-            "png": figure_to_data_uri(fig, dpi=72),
+            "png": figure_to_data_uri(fig, dpi=84),
         })
         fig_profiles[anchor] = {"profile_id": pid,
                                 **{v: p.to_dict() for v, p in plots.items()}}
@@ -265,7 +265,9 @@ def build_cruise_page(
         c=cd, n=cd.numbers, period=period, scheme=scheme, caution=CAUTION,
         styles=GRADE_STYLES, categories=CATEGORIES, map=smap, map_png=map_png,
         ts=ts, ts_png=ts_png, profile_rows=ptab.to_dict("records"), profile_vars=plot_vars,
-        count_rows=counts_table_rows(cd), confusion=conf_nested, dis_rows=dis_rows,
+        count_vars=list(cd.auto),
+        counts={v: {r["grade"]: r for r in rows} for v, rows in _group_counts(cd).items()},
+        confusion=conf_nested, dis_rows=dis_rows,
         profile_figs=profile_figs, model_rows=_model_rows(model_card), rules_name=rules_name,
         rules_text=rules_text, checks_run=checks_run, figure_data=figure_data,
         version=__version__, generated=generated,
@@ -299,6 +301,13 @@ def build_cruise_page(
         "rules": {"name": rules_name, "checks_run": checks_run},
     }
     return html, figure_data, summary
+
+
+def _group_counts(cd: CruiseData) -> dict[str, list[dict[str, Any]]]:
+    out: dict[str, list[dict[str, Any]]] = {}
+    for r in counts_table_rows(cd):
+        out.setdefault(r["variable"], []).append(r)
+    return out
 
 
 # --------------------------------------------------------------------------- all cruises
@@ -403,14 +412,14 @@ def write_reports(
         for p in tmp.iterdir():
             os.chmod(p, 0o644)
         os.chmod(tmp, 0o755)
-        _move_into_place(tmp, out, overwrite=overwrite)
+        move_into_place(tmp, out, overwrite=overwrite)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return [out / "index.html", out / "index.json", *(out / n for n in names)]
 
 
-def _move_into_place(tmp: Path, out: Path, *, overwrite: bool) -> None:
+def move_into_place(tmp: Path, out: Path, *, overwrite: bool) -> None:
     """Rename the finished `tmp` directory to `out` (replacing it only if `overwrite`)."""
     if not out.exists():
         os.rename(tmp, out)
