@@ -127,3 +127,25 @@ def test_write_audit_atomic_and_no_overwrite(tmp_path):
     write_audit(t.head(1), tmp_path / "a.csv", overwrite=True)
     assert len(pd.read_csv(path)) == 1
     assert [p.name for p in tmp_path.iterdir()] == ["a.csv"]  # no temporary left behind
+
+
+def test_audit_ranks_injected_manual_mistakes_of_the_demo_scenario_first():
+    # Invented scenario with known truth (qcflag.simulate); rules-only flags so the test
+    # stays fast: the model-based figure is measured by bench/measure_heldout.py.
+    from qcflag.pipeline import flag_batch
+    from qcflag.simulate import simulate_archive
+
+    b = simulate_archive(2, seed=11)
+    t = audit(b, flag_batch(b))
+    pos = {k: i for i, k in enumerate(zip(b.profiles["cruise"].astype(str),
+                                          b.profiles["profile_id"].astype(str), strict=True))}
+    prof = np.array([pos[k] for k in zip(t["cruise"], t["profile_id"], strict=True)])
+    idx = b.offsets[prof] + t["level"].to_numpy(dtype=np.int64)
+    truth = {v: b.extra[f"truth_{v}_grade"].to_numpy() for v in ("temperature", "salinity")}
+    manual = {v: b.manual_grade(v)[0] for v in ("temperature", "salinity")}
+    wrong = np.array([manual[v][i] != truth[v][i]
+                      for v, i in zip(t["variable"], idx, strict=True)])
+    assert len(t) > 200
+    assert wrong[:100].mean() >= 0.7
+    assert wrong[:100].mean() > 2 * wrong.mean()  # far better than the table as a whole
+    assert b.extra["truth_manual_error"].to_numpy()[idx[:100]].all() == wrong[:100].all()
