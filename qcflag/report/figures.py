@@ -376,18 +376,36 @@ def _unwrap_stations(lon: NDArray[np.float64]) -> NDArray[np.float64]:
     return np.where(ok, _wrap_near(lon, centre), lon)
 
 
-def _map_extent(lon: NDArray[np.float64], lat: NDArray[np.float64]) -> tuple[float, ...]:
+def _map_extent(
+    lon: NDArray[np.float64], lat: NDArray[np.float64], box_aspect: float = 1.3
+) -> tuple[float, float, float, float]:
+    """Return a padded extent around the stations that fills a `box_aspect` box.
+
+    `box_aspect` is the axes' width/height; the extent is widened in longitude or latitude
+    so that, at the local scale (longitude degrees shrink by cos(lat)), it fills the box.
+    """
     ok = np.isfinite(lon) & np.isfinite(lat)
     if not ok.any():
         return (-180.0, 180.0, -80.0, 80.0)
     lo, hi = float(lon[ok].min()), float(lon[ok].max())
     la, lb = float(lat[ok].min()), float(lat[ok].max())
-    pad = max(1.0, 0.15 * max(hi - lo, lb - la))
-    # keep a sensible aspect: at least 4 degrees across
+    pad = max(0.5, 0.12 * max(hi - lo, lb - la))
     cx, cy = (lo + hi) / 2, (la + lb) / 2
-    half_x = max((hi - lo) / 2 + pad, 2.0)
-    half_y = max((lb - la) / 2 + pad, 2.0)
-    return (cx - half_x, cx + half_x, max(cy - half_y, -90.0), min(cy + half_y, 90.0))
+    half_x = max((hi - lo) / 2 + pad, 1.5)
+    half_y = max((lb - la) / 2 + pad, 1.0)
+    coslat = max(float(np.cos(np.deg2rad(cy))), 0.1)
+    if half_x * coslat / half_y < box_aspect:  # too tall: widen
+        half_x = box_aspect * half_y / coslat
+    else:  # too wide: heighten
+        half_y = half_x * coslat / box_aspect
+    south, north = max(cy - half_y, -90.0), min(cy + half_y, 90.0)
+    return (cx - half_x, cx + half_x, south, north)
+
+
+def _label_offsets(n: int) -> list[tuple[float, float]]:
+    """Alternate label positions (points) around successive stations to limit overlaps."""
+    cycle = [(5, 5), (5, -11), (-5, 5), (-5, -11)]
+    return [cycle[i % 4] for i in range(n)]
 
 
 def plot_station_map(
@@ -427,8 +445,11 @@ def plot_station_map(
     lat = np.asarray(latitude, dtype=np.float64)
     g = np.asarray(grade, dtype=np.int64)
     if ax is None:
-        ax = new_figure(6.5, 5.0, left=0.1, right=0.95, bottom=0.1, top=0.95).subplots()
-    extent = _map_extent(lon, lat)
+        ax = new_figure(6.5, 5.0, left=0.1, right=0.86, bottom=0.1, top=0.97).subplots()
+    fig = ax.get_figure()
+    box = ax.get_position()
+    fw, fh = fig.get_size_inches()
+    extent = _map_extent(lon, lat, box_aspect=(box.width * fw) / (box.height * fh))
     artists: list[Any] = []
     levels: list[float] = []
     shape = (0, 0)
@@ -457,8 +478,8 @@ def plot_station_map(
                 cf = ax.contourf(x, y, np.where(depth > 0, depth, np.nan), levels=levels,
                                  cmap="Greys", vmin=-0.3 * levels[-1], vmax=1.2 * levels[-1])
                 artists.append(cf)
-                fig = ax.get_figure()
-                cb = fig.colorbar(cf, ax=ax, shrink=0.8, pad=0.02)
+                # the colour bar sits outside the map box and takes no space from it
+                cb = fig.colorbar(cf, cax=ax.inset_axes((1.03, 0.1, 0.035, 0.8)))
                 cb.set_label("depth (m)")
                 cb.ax.invert_yaxis()
                 lines = [v for v in (1000.0, 2000.0, 4000.0) if v in levels[1:-1]]
@@ -475,10 +496,15 @@ def plot_station_map(
                                               linewidths=0.7))
     artists += ax.plot(lon, lat, color="#333333", lw=0.6, ls=":", zorder=2)
     artists += _scatter_by_grade(ax, lon, lat, g, size=46, zorder=4)
+    offsets = _label_offsets(lon.size)
     for i in range(lon.size):  # one label per station (profiles, not levels)
         if np.isfinite(lon[i]) and np.isfinite(lat[i]):
-            artists.append(ax.annotate(labels[i], (lon[i], lat[i]), xytext=(4, 4),
-                                       textcoords="offset points", fontsize=7, zorder=10))
+            dx, dy = offsets[i]
+            artists.append(ax.annotate(
+                labels[i], (lon[i], lat[i]), xytext=(dx, dy), textcoords="offset points",
+                fontsize=7, zorder=10, ha="left" if dx > 0 else "right",
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
+                      "alpha": 0.75}))
     ax.set_xlim(extent[0], extent[1])
     ax.set_ylim(extent[2], extent[3])
     mid = np.deg2rad((extent[2] + extent[3]) / 2)

@@ -190,7 +190,7 @@ def build_cruise_page(
     ids = b.profiles["profile_id"].astype(str).tolist()
     lon_p = b.profiles["longitude"].to_numpy(dtype=float)
     lat_p = b.profiles["latitude"].to_numpy(dtype=float)
-    map_fig = new_figure(6.5, 5.0, left=0.1, right=0.97, bottom=0.09, top=0.97)
+    map_fig = new_figure(7.5, 5.6, left=0.09, right=0.83, bottom=0.09, top=0.98)
     smap = plot_station_map(lon_p, lat_p, ids, cd.worst_auto_per_profile(),
                             bathymetry=bathymetry, ax=map_fig.subplots())
     map_png = figure_to_data_uri(map_fig, dpi=90)
