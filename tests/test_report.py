@@ -433,3 +433,44 @@ def test_summary_helpers_against_pandas():
                         "reasons": ""})
     d = disagreements(tab)
     assert d["level"].tolist() == [3, 2, 1]  # equal grades dropped, highest score first
+
+
+@pytest.mark.shared
+def test_report_on_real_argo_profiles(argo_files, tmp_path):
+    """Real, expert-passed Argo profiles (../shared/data/argo, Argo GDAC, doi:10.17882/42182)."""
+    from qcflag.io import read_files
+    from qcflag.pipeline import flag_batch
+    from qcflag.reference import seafloor_depth
+
+    batch = read_files(argo_files)
+    result = flag_batch(batch)  # rules only
+    out = tmp_path / "argo"
+    write_reports(batch, result, out_dir=out)
+    # positions as listed in ../shared/data/README.md (from the files' own metadata)
+    published = {"4900785": (27.9, -75.9), "4901052": (14.6, -150.3),
+                 "3901602": (43.8, -58.8)}
+    for k, pid in enumerate(batch.profiles["profile_id"]):
+        cruise = str(batch.profiles["cruise"].iloc[k])
+        page = parse(out / f"{cruise}.html")
+        data = json.loads(page.figure_data)
+        lat, lon = published[cruise]
+        assert data["map"]["latitude"][0] == pytest.approx(lat, abs=0.06)
+        assert data["map"]["longitude"][0] == pytest.approx(lon, abs=0.06)
+        # profiling floats drift in deep water (the shallowest of the three, off Nova
+        # Scotia, has ~860 m under it on the packaged ETOPO5 grid): the map shows sea there
+        assert seafloor_depth(lat, lon) > 500
+        assert max(data["map"]["depth_levels"]) >= seafloor_depth(lat, lon)
+        # every level of these files carries the expert's flag 1: all manual marks "good"
+        fig = next(iter(data["profiles"].values()))
+        assert fig["profile_id"] == pid
+        for var in ("temperature", "salinity"):
+            assert set(fig[var]["manual_grade"]) == {1}
+            assert set(fig[var]["manual_colour"]) == {GRADE_STYLES[1].colour}
+        summary = json.loads((out / f"{cruise}.json").read_text())
+        n = int(batch.counts[k])
+        assert summary["flag_counts"]["temperature"]["1"]["manual"] == n
+        # T-S points are TEOS-10 values of the real levels
+        sel = slice(int(batch.offsets[k]), int(batch.offsets[k + 1]))
+        ok = np.isfinite(batch.temperature[sel]) & np.isfinite(batch.salinity[sel])
+        sa = gsw.SA_from_SP(batch.salinity[sel][ok], batch.pressure[sel][ok], lon, lat)
+        assert np.allclose(data["ts_diagram"]["SA"], sa, atol=2e-3)
