@@ -79,7 +79,7 @@ __all__ = [
 GRADES: tuple[int, ...] = (1, 2, 3, 4)
 """The ordinal grades every qcflag model predicts, best first."""
 
-ClassWeight = Literal["balanced", "sqrt"] | None
+ClassWeight = Literal["balanced", "sqrt"] | dict[Any, float] | None
 
 
 # --------------------------------------------------------------------------- helpers
@@ -87,12 +87,22 @@ def _sigmoid(x: NDArray[np.float64]) -> NDArray[np.float64]:
     return expit(np.asarray(x, dtype=np.float64))
 
 
-def _class_sample_weight(y_idx: NDArray[np.int64], mode: ClassWeight) -> NDArray[np.float64]:
+def _class_sample_weight(
+    y_idx: NDArray[np.int64], mode: ClassWeight, classes: NDArray[Any] | None = None
+) -> NDArray[np.float64]:
     """Per-sample weights from encoded labels (see the module docstring)."""
     if mode is None:
         return np.ones(y_idx.size)
+    if isinstance(mode, dict):
+        assert classes is not None
+        w = np.array([float(mode.get(c.item() if hasattr(c, "item") else c, 1.0))
+                      for c in classes])
+        if (w < 0).any() or not np.isfinite(w).all():
+            raise ValueError("class_weight values must be finite and non-negative")
+        return w[y_idx]
     if mode not in ("balanced", "sqrt"):
-        raise ValueError(f"class_weight must be 'balanced', 'sqrt' or None, got {mode!r}")
+        raise ValueError(
+            f"class_weight must be 'balanced', 'sqrt', a dict or None, got {mode!r}")
     counts = np.bincount(y_idx)
     present = counts > 0
     w_class = np.zeros(counts.size)
@@ -424,8 +434,9 @@ class OrdinalLogistic(_GradeEstimator):
         share of the commonest grade, up-weighted by the inverse share (``mord``'s optimiser
         is single-threaded numpy; this bounds training time on big archives). None fits on
         all levels.
-    class_weight : {"sqrt", "balanced"} or None, default="sqrt"
-        Sample weighting against class imbalance (see the module docstring).
+    class_weight : {"sqrt", "balanced"}, dict or None, default="sqrt"
+        Sample weighting against class imbalance (see the module docstring); a dict maps
+        labels to weights (missing labels weigh 1).
     classes : sequence of int or None, default=(1, 2, 3, 4)
         Ordered labels; None uses the sorted distinct training labels.
 
@@ -496,7 +507,7 @@ class OrdinalLogistic(_GradeEstimator):
             raise ValueError(f"kind must be 'at' or 'it', got {self.kind!r}")
         X, y = self._validate_fit(X, y)
         y_idx = self._encode_labels(y)
-        sw = _class_sample_weight(y_idx, self.class_weight)
+        sw = _class_sample_weight(y_idx, self.class_weight, self.classes_)
         seen = np.flatnonzero(self.seen_)
         y_seen = np.searchsorted(seen, y_idx)
         fill, mean, scale, steps = _fit_scaling(X)
@@ -548,8 +559,9 @@ class NominalLogistic(_GradeEstimator):
         Inverse L2 regularisation strength.
     max_iter : int, default=300
         lbfgs iterations.
-    class_weight : {"sqrt", "balanced"} or None, default="sqrt"
-        Sample weighting against class imbalance (see the module docstring).
+    class_weight : {"sqrt", "balanced"}, dict or None, default="sqrt"
+        Sample weighting against class imbalance (see the module docstring); a dict maps
+        labels to weights (missing labels weigh 1).
     classes : sequence of int or None, default=(1, 2, 3, 4)
         Ordered labels; None uses the sorted distinct training labels.
 
@@ -567,6 +579,8 @@ class NominalLogistic(_GradeEstimator):
         Weights per seen class (softmax parametrisation).
     intercept_ : ndarray of shape (n_seen,)
         Intercept per seen class.
+    n_iter_ : int
+        lbfgs iterations run (equal to `max_iter` if it did not converge).
     n_features_in_ : int
         Number of features seen in ``fit``.
     feature_names_in_ : ndarray of str
@@ -575,6 +589,7 @@ class NominalLogistic(_GradeEstimator):
 
     _ordinal = False
     _array_attrs = ("fill_", "mean_", "scale_", "coef_", "intercept_")
+    _scalar_attrs = ("n_iter_",)
 
     def __init__(
         self,
@@ -598,7 +613,7 @@ class NominalLogistic(_GradeEstimator):
 
         X, y = self._validate_fit(X, y)
         y_idx = self._encode_labels(y)
-        sw = _class_sample_weight(y_idx, self.class_weight)
+        sw = _class_sample_weight(y_idx, self.class_weight, self.classes_)
         fill, mean, scale, steps = _fit_scaling(X)
         self.fill_, self.mean_, self.scale_ = fill, mean, scale
         n_seen = int(self.seen_.sum())
@@ -606,6 +621,7 @@ class NominalLogistic(_GradeEstimator):
             self.pipeline_ = None
             self.coef_ = np.zeros((1, X.shape[1]))
             self.intercept_ = np.zeros(1)
+            self.n_iter_ = 0
             return self
         from sklearn.exceptions import ConvergenceWarning
 
@@ -614,6 +630,7 @@ class NominalLogistic(_GradeEstimator):
             warnings.simplefilter("ignore", ConvergenceWarning)
             lr.fit(_standardise(X, fill, mean, scale), y_idx, sample_weight=sw)
         self.pipeline_ = Pipeline([*steps, ("logistic", lr)])
+        self.n_iter_ = int(np.max(lr.n_iter_))
         coef = np.asarray(lr.coef_, dtype=np.float64)
         icpt = np.asarray(lr.intercept_, dtype=np.float64)
         if n_seen == 2:  # binary: one row for the second class; softmax-equivalent form
@@ -668,8 +685,9 @@ class CumulativeBoostedClassifier(_GradeEstimator):
         Minimum samples per leaf.
     l2_regularization : float, default=0.0
         L2 penalty on leaf values.
-    class_weight : {"sqrt", "balanced"} or None, default="sqrt"
-        Sample weighting against class imbalance, from the multi-class labels.
+    class_weight : {"sqrt", "balanced"}, dict or None, default="sqrt"
+        Sample weighting against class imbalance, from the multi-class labels; a dict maps
+        labels to weights (missing labels weigh 1).
     random_state : int or None, default=0
         Seed of the boosting models.
     classes : sequence of int or None, default=(1, 2, 3, 4)
@@ -683,11 +701,15 @@ class CumulativeBoostedClassifier(_GradeEstimator):
         Which classes occurred in the training labels.
     ensembles_ : list of TreeEnsemble
         One per threshold, ``P(y > k)`` for the ``k``-th seen class.
+    n_iter_ : ndarray of int
+        Boosting iterations of each threshold model.
     n_features_in_ : int
         Number of features seen in ``fit``.
     feature_names_in_ : ndarray of str
         Feature names seen in ``fit`` (only when X had string column names).
     """
+
+    _array_attrs = ("n_iter_",)
 
     def __init__(
         self,
@@ -718,12 +740,13 @@ class CumulativeBoostedClassifier(_GradeEstimator):
 
         X, y = self._validate_fit(X, y)
         y_idx = self._encode_labels(y)
-        sw = _class_sample_weight(y_idx, self.class_weight)
+        sw = _class_sample_weight(y_idx, self.class_weight, self.classes_)
         seen = np.flatnonzero(self.seen_)
         # all-NaN columns carry nothing and trip HGB's binning; fit on the others
         usable = np.flatnonzero(~np.isnan(X).all(axis=0))
         Xu = X[:, usable] if usable.size < X.shape[1] else X
         self.ensembles_ = []
+        n_iter = []
         for k in seen[:-1] if usable.size else []:
             hgb = HistGradientBoostingClassifier(
                 max_iter=self.max_iter,
@@ -735,8 +758,10 @@ class CumulativeBoostedClassifier(_GradeEstimator):
                 random_state=self.random_state,
             )
             hgb.fit(Xu, (y_idx > k).astype(np.int64), sample_weight=sw)
+            n_iter.append(hgb.n_iter_)
             self.ensembles_.append(
                 TreeEnsemble.from_sklearn(hgb, feature_map=usable, n_features=X.shape[1]))
+        self.n_iter_ = np.array(n_iter or [0], dtype=np.int64)
         if seen.size > 1 and not self.ensembles_:  # no usable feature: class priors
             self.seen_ = np.zeros_like(self.seen_)
             self.seen_[int(np.bincount(y_idx).argmax())] = True
