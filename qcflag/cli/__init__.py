@@ -10,6 +10,7 @@ from qcflag.cli._app import app, main
 
 # Importing a command module registers its command(s) on ``app``.
 from qcflag.cli import _basic  # noqa: F401  isort: skip
+from qcflag.cli import train  # noqa: F401  isort: skip
 from qcflag.cli import report  # noqa: F401  isort: skip
 from qcflag.cli import simulate  # noqa: F401  isort: skip
 from qcflag.cli import inspect  # noqa: F401  isort: skip
