@@ -233,7 +233,8 @@ def test_map_shows_every_station_on_packaged_bathymetry(report):
     assert page.by_id["map"]["data-n-stations"] == "3"
     m = json.loads(page.figure_data)["map"]
     prof = batch.profiles[batch.profiles["cruise"] == "AT-102"]
-    assert m["label"] == prof["profile_id"].tolist()
+    # labelled by profile id without the cruise name: "AT-102/001" -> "001"
+    assert m["label"] == [pid.split("/")[1] for pid in prof["profile_id"]]
     assert np.allclose(m["longitude"], prof["longitude"]) and np.allclose(
         m["latitude"], prof["latitude"])
     lon0, lon1, lat0, lat1 = m["extent"]

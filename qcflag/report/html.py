@@ -146,6 +146,15 @@ def _load_bathymetry() -> Bathymetry | None:
 
 
 # --------------------------------------------------------------------------- one cruise
+def _short_labels(ids: list[str], cruise: str) -> list[str]:
+    """Profile ids without a leading cruise name (``AT-101/007`` -> ``007``) for map labels."""
+    out = []
+    for pid in ids:
+        rest = pid[len(cruise):].lstrip("_-/.: ") if pid.startswith(cruise) else ""
+        out.append(rest or pid)
+    return out
+
+
 def _fmt(x: Any, digits: int) -> str:
     try:
         f = float(x)
@@ -191,7 +200,8 @@ def build_cruise_page(
     lon_p = b.profiles["longitude"].to_numpy(dtype=float)
     lat_p = b.profiles["latitude"].to_numpy(dtype=float)
     map_fig = new_figure(7.5, 5.6, left=0.09, right=0.83, bottom=0.09, top=0.98)
-    smap = plot_station_map(lon_p, lat_p, ids, cd.worst_auto_per_profile(),
+    smap = plot_station_map(lon_p, lat_p, _short_labels(ids, cd.cruise),
+                            cd.worst_auto_per_profile(),
                             bathymetry=bathymetry, ax=map_fig.subplots())
     map_png = figure_to_data_uri(map_fig, dpi=90)
 
