@@ -286,6 +286,9 @@ def run_demo(
         t0 = time.perf_counter()
         train = read_files(train_files)
         hold = read_files(hold_files)
+        for b in (train, hold):  # record where the files will be, not the build folder
+            b.attrs["sources"] = [str(out / Path(f).relative_to(work))
+                                  for f in b.attrs.get("sources", [])]
         train_cruises = list(dict.fromkeys(train.profiles["cruise"].astype(str)))
         hold_cruises = list(dict.fromkeys(hold.profiles["cruise"].astype(str)))
         say(f"[2/6] training on {len(train_cruises)} cruises ({train.n_levels} levels) with "

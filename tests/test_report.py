@@ -79,7 +79,9 @@ def make_case(seed: int = 1, cruises: tuple[str, ...] = ("AT-101", "AT-102"), n_
         variables={"temperature": vf(auto_t, state_t), "salinity": vf(auto_s, np.zeros(n)),
                    "pressure": vf(auto_p, np.zeros(n))},
         checks=checks, profiles=pd.DataFrame(index=range(n_p)), scheme="argo",
-        model_card={"estimator": "boosted", "trained_on": ["C1", "C2"], "n_levels": 12345},
+        model_card={"estimator": "boosted", "trained_on": ["C1", "C2"], "n_levels": 12345,
+                    "cv": {"temperature": {"boosted": {"mae": {"mean": 0.125, "sd": 0.5}}}},
+                    "fusion": {"temperature": {"model_weight": 0.75, "bias": [0.0] * 4}}},
     )
     rows = []
     for var, a, m in (("temperature", auto_t, np.where(np.arange(n) == 7, 0, manual_t)),
@@ -375,6 +377,9 @@ def test_caution_model_card_and_rules_on_every_page(report):
     html = (out / "AT-101.html").read_text()
     assert "<details>" in html and "&lt;b&gt;x&lt;/b&gt;" in html  # rule text escaped
     assert "boosted" in html
+    # the card's cross-validation scores are tabulated, the calibration summarised
+    assert 'data-model="boosted"' in html and "0.125 \u00b1 0.500" in html
+    assert "model weight 0.75" in html and "bias" not in html
     for f in out.glob("*.json"):
         assert json.loads(f.read_text())["caution"] == CAUTION
 

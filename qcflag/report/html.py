@@ -111,29 +111,85 @@ def _rules_info(rules: object, result: FlagResult) -> tuple[str, str]:
     return str(getattr(rules, "name", rules)), str(getattr(rules, "text", "") or "")
 
 
+CV_METRICS = ("mae", "qwk", "recall_bad", "false_alarm_rate", "roc_auc", "pr_auc")
+"""Cross-validation scores shown from a model card (mean and spread over folds)."""
+
+_CARD_SKIP = {"cv", "holdout", "fusion", "training_data", "packages", "caution"}
+
+
+def _fmt_value(v: Any) -> str:
+    if isinstance(v, (float, np.floating)):
+        return f"{float(v):.4g}"
+    if isinstance(v, (list, tuple)):
+        if not v:
+            return "none"
+        return ", ".join(_fmt_value(x) for x in v[:20]) + (", ..." if len(v) > 20 else "")
+    if isinstance(v, dict):
+        text = "; ".join(f"{k}: {_fmt_value(x)}" for k, x in v.items())
+        return text if len(text) <= 300 else text[:297] + "..."
+    return str(v)
+
+
 def _model_rows(card: dict[str, Any] | None, limit: int = 40) -> list[tuple[str, str]]:
-    """Flatten a model card to (key, value) rows for a two-column table."""
+    """Summarise a model card as (key, value) rows for a two-column table.
+
+    Scalars are shown as they are; the training data, the calibration and the package
+    versions are condensed; cross-validation scores go to :func:`_cv_rows` and the
+    (large) fitted calibration parameters are summarised by their model weight only.
+    """
+    card = card or {}
     rows: list[tuple[str, str]] = []
-
-    def fmt(v: Any) -> str:
-        if isinstance(v, (float, np.floating)):
-            return f"{float(v):.4g}"
-        if isinstance(v, (list, tuple)):
-            text = ", ".join(fmt(x) for x in v[:20]) + (", ..." if len(v) > 20 else "")
-            return text
-        if isinstance(v, dict):
-            text = _dumps(v)
-            return text if len(text) <= 300 else text[:297] + "..."
-        return str(v)
-
-    for k, v in (card or {}).items():
-        if isinstance(v, dict) and len(v) <= 12 and all(
-            not isinstance(x, (dict, list)) for x in v.values()
-        ):
-            rows.extend((f"{k}: {k2}", fmt(v2)) for k2, v2 in v.items())
-        else:
-            rows.append((str(k), fmt(v)))
+    for k, v in card.items():
+        if k in _CARD_SKIP:
+            continue
+        if k == "rules_digest" and isinstance(v, str):
+            v = v[:12]
+        rows.append((str(k), _fmt_value(v)))
+    td = card.get("training_data")
+    if isinstance(td, dict):
+        rows.extend((f"training data: {k}", _fmt_value(td[k]))
+                    for k in ("n_cruises", "n_profiles", "n_levels", "holdout_cruises")
+                    if k in td)
+        by_grade = td.get("labelled_levels_by_grade")
+        if isinstance(by_grade, dict):
+            for var, counts in by_grade.items():
+                rows.append((f"training labels: {var}", _fmt_value(counts)))
+    fusion = card.get("fusion")
+    if isinstance(fusion, dict):
+        for var, f in fusion.items():
+            w = f.get("model_weight") if isinstance(f, dict) else None
+            text = "fitted" + (f" (model weight {_fmt_value(w)})" if w is not None else "")
+            rows.append((f"calibration: {var}", text))
+    if isinstance(card.get("packages"), dict):
+        rows.append(("packages", _fmt_value(card["packages"])))
+    if card.get("caution"):
+        rows.append(("caution", str(card["caution"])))
     return rows[:limit]
+
+
+def _cv_rows(card: dict[str, Any] | None) -> list[dict[str, str]]:
+    """Cross-validation summary rows (variable, model, "mean ± sd" per metric)."""
+    cv = (card or {}).get("cv")
+    rows: list[dict[str, str]] = []
+    if not isinstance(cv, dict):
+        return rows
+    for var, models in cv.items():
+        if not isinstance(models, dict):
+            continue
+        for model, metrics in models.items():
+            if not isinstance(metrics, dict):
+                continue
+            row = {"variable": str(var), "model": str(model)}
+            for m in CV_METRICS:
+                v = metrics.get(m)
+                if isinstance(v, dict) and v.get("mean") is not None:
+                    sd = v.get("sd")
+                    row[m] = _fmt(v["mean"], 3) + (f" \u00b1 {_fmt(sd, 3)}" if sd is not None
+                                                   and np.isfinite(sd) else "")
+                else:
+                    row[m] = ""
+            rows.append(row)
+    return rows
 
 
 def _load_bathymetry() -> Bathymetry | None:
@@ -278,7 +334,8 @@ def build_cruise_page(
         count_vars=list(cd.auto),
         counts={v: {r["grade"]: r for r in rows} for v, rows in _group_counts(cd).items()},
         confusion=conf_nested, dis_rows=dis_rows,
-        profile_figs=profile_figs, model_rows=_model_rows(model_card), rules_name=rules_name,
+        profile_figs=profile_figs, model_rows=_model_rows(model_card), cv_rows=_cv_rows(model_card),
+        cv_metrics=CV_METRICS, rules_name=rules_name,
         rules_text=rules_text, checks_run=checks_run, figure_data=figure_data,
         version=__version__, generated=generated,
     )
