@@ -287,8 +287,10 @@ def run_demo(
         train = read_files(train_files)
         hold = read_files(hold_files)
         for b in (train, hold):  # record where the files will be, not the build folder
-            b.attrs["sources"] = [str(out / Path(f).relative_to(work))
-                                  for f in b.attrs.get("sources", [])]
+            b.attrs["sources"] = [
+                str(out / Path(f).relative_to(work)) if Path(f).is_relative_to(work) else f
+                for f in b.attrs.get("sources", [])
+            ]
         train_cruises = list(dict.fromkeys(train.profiles["cruise"].astype(str)))
         hold_cruises = list(dict.fromkeys(hold.profiles["cruise"].astype(str)))
         say(f"[2/6] training on {len(train_cruises)} cruises ({train.n_levels} levels) with "
