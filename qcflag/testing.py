@@ -179,7 +179,7 @@ def valid_batches(
             if n > 1:
                 i = draw(st.integers(1, n - 1))
                 pressure[i] = pressure[i - 1] - draw(st.sampled_from([0.0, 1.0]))
-        years = draw(st.lists(st.integers(0, 85 * 365 * 86400), min_size=n_prof,
+        years = draw(st.lists(st.integers(0, 70 * 365 * 86400), min_size=n_prof,  # up to ~2020
                               max_size=n_prof))
         profiles = pd.DataFrame({
             "profile_id": [f"P{i:03d}" for i in range(n_prof)],

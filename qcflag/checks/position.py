@@ -127,7 +127,7 @@ def date(
     missing = np.isnat(t)
     day = np.timedelta64(86_400_000_000_000, "ns")
     before = (lo - t) / day
-    after = (t - hi) / day
+    after = np.ceil((t - hi) / day)  # whole days, so it ticks at most once a day
     # after `now`: days past it; otherwise days before `earliest` (negative inside the window),
     # so the statistic (a learning feature) does not change with the clock
     stat = np.where(missing, np.nan, np.where(t > hi, after, before))
