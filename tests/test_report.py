@@ -355,7 +355,7 @@ def test_disagreement_list_links_to_profile_figures(report):
     rows = [r for r in _table_rows(page, "disagreements") if "data-level" in r]
     expect = audit[audit["cruise"] == "AT-101"]
     assert int(c.by_id["disagreements"]["data-count"]) == len(expect)
-    assert len(rows) == min(len(expect), 300)
+    assert len(rows) == min(len(expect), 200)
     got = {(r["data-profile-id"], int(r["data-level"]), r["data-variable"]) for r in rows}
     want = set(zip(expect["profile_id"], expect["level"], expect["variable"], strict=True))
     assert got == want

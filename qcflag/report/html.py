@@ -41,7 +41,7 @@ if TYPE_CHECKING:
 
 __all__ = ["build_cruise_page", "move_into_place", "to_jsonable", "write_reports"]
 
-MAX_DISAGREEMENT_ROWS = 300
+MAX_DISAGREEMENT_ROWS = 200
 """Disagreements listed on a page (highest review score first); the JSON keeps them all."""
 
 
