@@ -480,3 +480,18 @@ def test_report_on_real_argo_profiles(argo_files, tmp_path):
         ok = np.isfinite(batch.temperature[sel]) & np.isfinite(batch.salinity[sel])
         sa = gsw.SA_from_SP(batch.salinity[sel][ok], batch.pressure[sel][ok], lon, lat)
         assert np.allclose(data["ts_diagram"]["SA"], sa, atol=2e-3)
+
+
+def test_batch_without_manual_flags(tmp_path):
+    from dataclasses import replace
+
+    batch, result, _, truth = make_case(seed=6, cruises=("NF",), n_prof=2)
+    bare = replace(batch, flags={})
+    write_reports(bare, result, out_dir=tmp_path / "r")
+    summary = json.loads((tmp_path / "r" / "NF.json").read_text())
+    n = summary["numbers"]
+    assert n["percent_flagged_manual"] is None and n["n_compared"] == 0
+    assert n["n_disagreements"] == 0 and summary["disagreements"] == []
+    worst = np.max([truth["auto"][v] for v in truth["auto"]], axis=0)
+    assert n["percent_flagged_auto"] == pytest.approx(100 * (worst >= 3).mean(), abs=0.01)
+    assert "has no manual flags to compare with" in (tmp_path / "r" / "NF.html").read_text()
