@@ -1,0 +1,79 @@
+"""Learning benchmark: training and prediction on about 1,000,000 simulated levels.
+
+Usage::
+
+    python3 bench/bench_learn.py           # ~1,000,000 levels (several minutes)
+    python3 bench/bench_learn.py --quick   # ~70,000 levels
+
+Features come from the real chain (simulated archive -> standard rules -> build_features), so
+the matrix has the width and NaN pattern of production. Figures are measured in one run:
+training time of the ordinal logistic model (LogisticAT, default subsampling of the commonest
+grade) and of the cumulative boosted model, and prediction throughput of each (levels per
+second of predict_proba on the full matrix). Targets: linear training < 60 s, prediction
+>= 1,000,000 levels/s.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+from typing import Any
+
+import numpy as np
+
+
+def _features(n_cruises: int) -> tuple[np.ndarray, np.ndarray, float]:
+    from qcflag.features import build_features
+    from qcflag.learn.model import labels_for
+    from qcflag.rules import run_checks
+    from qcflag.simulate import simulate_archive
+
+    t0 = time.perf_counter()
+    batch = simulate_archive(n_cruises, seed=11)
+    checks = run_checks(batch)
+    X, _ = build_features(batch, checks, "temperature")
+    y = labels_for(batch, "temperature")
+    keep = y > 0
+    return X[keep], y[keep], time.perf_counter() - t0
+
+
+def main(quick: bool = False) -> list[dict[str, Any]]:
+    """Measure and print the learning figures; return them as rows for run_all."""
+    from qcflag.learn import CumulativeBoostedClassifier, OrdinalLogistic
+
+    X, y, t_feat = _features(2 if quick else 30)
+    n = X.shape[0]
+    rows: list[dict[str, Any]] = [
+        {"benchmark": "learn", "figure": "levels (temperature, labelled)", "value": float(n)},
+        {"benchmark": "learn", "figure": "simulate + checks + features", "value": t_feat,
+         "unit": "s"},
+    ]
+    for name, est, target in (
+        ("logistic-at", OrdinalLogistic("at"), 60.0),
+        ("boosted", CumulativeBoostedClassifier(), None),
+    ):
+        t0 = time.perf_counter()
+        est.fit(X, y)
+        t_fit = time.perf_counter() - t0
+        est.predict_proba(X[:1000])  # warm-up (builds the tree predictors once)
+        t0 = time.perf_counter()
+        p = est.predict_proba(X)
+        t_pred = time.perf_counter() - t0
+        assert np.allclose(p.sum(axis=1), 1.0)
+        rate = n / t_pred
+        rows.append({"benchmark": "learn", "figure": f"{name} training", "value": t_fit,
+                     "unit": "s", "target": "< 60 s" if target else "",
+                     "met": (t_fit < target) if target else None})
+        rows.append({"benchmark": "learn", "figure": f"{name} prediction", "value": rate,
+                     "unit": "levels/s", "target": ">= 1,000,000",
+                     "met": rate >= 1_000_000})
+    for r in rows:
+        print(f"{r['figure']:<36} {r['value']:>14,.2f} {r.get('unit', ''):<9} "
+              f"{r.get('target', '')}")
+    return rows
+
+
+if __name__ == "__main__":
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="small sizes")
+    main(quick=ap.parse_args().quick)
