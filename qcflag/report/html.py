@@ -101,9 +101,15 @@ def _environment() -> Any:
 
 # --------------------------------------------------------------------------- inputs
 def _rules_info(rules: object, result: FlagResult) -> tuple[str, str]:
-    """(name, text) of the rule set given as a RuleSet, a name, or None."""
+    """(name, text) of the rule set given as a RuleSet, a name, or None.
+
+    With None, the name recorded in the model card is shown (without the text), else
+    "not recorded".
+    """
     if rules is None:
-        return "not recorded", ""
+        recorded = (result.model_card or {}).get("rules")
+        return (f"{recorded} (as recorded in the model card)" if recorded
+                else "not recorded"), ""
     if isinstance(rules, (str, os.PathLike)):
         from qcflag.rules import load_rules
 
