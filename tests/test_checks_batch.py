@@ -11,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -127,6 +128,35 @@ def test_moving_median_mad_against_numpy_median():
             assert mad[i] == np.median(np.abs(np.asarray(win) - np.median(win)))
         else:
             assert np.isnan(med[i])
+
+
+@pytest.mark.parametrize("half_window", [1, 2, 3, 5, 8, 15, 16])
+def test_moving_median_mad_full_windows_against_numpy_median(half_window):
+    # mostly full windows (the selection-network path; half_window 16 is past its limit
+    # and takes np.partition), with ties from rounding and a few gaps
+    rng = np.random.default_rng(half_window)
+    counts = rng.integers(0, 90, size=8)
+    n = int(counts.sum())
+    offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+    profiles = pd.DataFrame({"profile_id": [str(i) for i in range(8)], "cruise": "R",
+                             "time": pd.to_datetime(["2020-01-01"] * 8), "latitude": 0.0,
+                             "longitude": 0.0, "platform": ""})
+    v = np.round(rng.normal(10, 1, n), 1)
+    batch = ProfileBatch(offsets=offsets, pressure=np.arange(n, dtype=float),
+                         temperature=v, salinity=rng.normal(35, 0.1, n), profiles=profiles)
+    valid = rng.random(n) < 0.97
+    k = half_window
+    med, mad, count = moving_median_mad(batch, v, valid, k)
+    for i in range(n):
+        lo = batch.offsets[batch.profile_index[i]]
+        hi = batch.offsets[batch.profile_index[i] + 1]
+        win = np.array([v[j] for j in range(max(lo, i - k), min(hi, i + k + 1)) if valid[j]])
+        assert count[i] == win.size
+        if win.size:
+            assert med[i] == np.median(win)
+            assert mad[i] == np.median(np.abs(win - np.median(win)))
+        else:
+            assert np.isnan(med[i]) and np.isnan(mad[i])
 
 
 def test_shape_statistics_react_to_a_spike():
