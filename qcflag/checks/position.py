@@ -201,15 +201,14 @@ def below_seafloor(
         minus sea-floor depth, m (``gsw.z_from_p`` depth; negative above the floor). Grade 3
         where it exceeds `tolerance`; 0 where the position or the pressure is missing.
     """
-    from qcflag.reference.fields import pressure_to_depth, seafloor_depth
+    from qcflag.reference.fields import level_depth, seafloor_depth
 
     lat, lon = _positions(batch)
     ok = _valid_position(lat, lon)
     floor = np.full(lat.size, np.nan)
     floor[ok] = seafloor_depth(lat[ok], lon[ok], method=method)
     pi = batch.profile_index
-    level_depth = pressure_to_depth(batch.pressure, lat[pi])
-    stat = level_depth - floor[pi]
+    stat = level_depth(batch) - floor[pi]
     grade = np.where(stat > tolerance, 3, 1).astype(np.int8)
     grade[np.isnan(stat)] = 0
     return _spread(batch, stat, grade, per_profile=False)

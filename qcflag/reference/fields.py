@@ -24,10 +24,11 @@ Automated flags based on these fields assist expert quality control; they do not
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
-from typing import TYPE_CHECKING, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 
@@ -47,6 +48,7 @@ __all__ = [
     "climatology_at",
     "climatology_columns",
     "climatology_for",
+    "level_depth",
     "load_bathymetry",
     "load_climatology",
     "pressure_to_depth",
@@ -340,6 +342,8 @@ def climatology_at(
     longitude: ArrayLike,
     pressure: ArrayLike,
     profile_index: ArrayLike | None = None,
+    *,
+    depth: ArrayLike | None = None,
 ) -> ClimatologyAtLevels:
     """Interpolate the climatology to levels.
 
@@ -354,6 +358,9 @@ def climatology_at(
         Sea pressure, dbar.
     profile_index : array-like of int, shape (n_levels,), optional
         Profile number (index into `latitude`/`longitude`) of each level.
+    depth : array-like of shape (n_levels,), optional
+        Depth of each level, m, when already computed with :func:`pressure_to_depth` from
+        these pressures and latitudes (saves converting again).
 
     Returns
     -------
@@ -388,7 +395,12 @@ def climatology_at(
     grid = _climatology_grid()
     zstd = grid.depth
     cols = _columns(lat, lon)  # (n_pos, n_fields, n_depth)
-    depth = pressure_to_depth(p, lat[idx])
+    if depth is None:
+        depth = pressure_to_depth(p, lat[idx])
+    else:
+        depth = _as_1d("depth", depth)
+        if depth.shape != p.shape:
+            raise ValueError("depth must have one entry per pressure level")
     d = np.maximum(depth, zstd[0])  # above the surface level: surface value
     inside = np.isfinite(d) & (d <= zstd[-1])
     dd = np.where(inside, d, zstd[0])
@@ -418,14 +430,51 @@ def climatology_for(batch: ProfileBatch) -> ClimatologyAtLevels:
     Returns
     -------
     ClimatologyAtLevels
-        Fields of shape (batch.n_levels,).
+        Fields of shape (batch.n_levels,), read-only; computed once per batch and shared
+        by later calls with the same batch.
     """
-    return climatology_at(
-        batch.profiles["latitude"].to_numpy(dtype=np.float64),
-        batch.profiles["longitude"].to_numpy(dtype=np.float64),
-        batch.pressure,
-        batch.profile_index,
-    )
+    cached = _PER_BATCH.get(batch)
+    if cached is None:
+        cached = climatology_at(
+            batch.profiles["latitude"].to_numpy(dtype=np.float64),
+            batch.profiles["longitude"].to_numpy(dtype=np.float64),
+            batch.pressure,
+            batch.profile_index,
+            depth=level_depth(batch),
+        )
+        for arr in (cached.t_mean, cached.s_mean, cached.t_sd, cached.s_sd, cached.depth):
+            arr.setflags(write=False)  # shared between the checks of this batch
+        _PER_BATCH[batch] = cached
+    return cached
+
+
+def level_depth(batch: ProfileBatch) -> NDArray[np.float64]:
+    """Depth of every level of a batch, m (positive down; :func:`pressure_to_depth`).
+
+    Computed once per batch and shared by the checks that need it (climatology, sea floor).
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+
+    Returns
+    -------
+    ndarray of float64, shape (batch.n_levels,)
+        Read-only.
+    """
+    depth = _DEPTH.get(batch)
+    if depth is None:
+        lat = batch.profiles["latitude"].to_numpy(dtype=np.float64)
+        depth = pressure_to_depth(batch.pressure, lat[batch.profile_index])
+        depth.setflags(write=False)
+        _DEPTH[batch] = depth
+    return depth
+
+
+_DEPTH: weakref.WeakKeyDictionary[Any, NDArray[np.float64]] = weakref.WeakKeyDictionary()
+_PER_BATCH: weakref.WeakKeyDictionary[Any, ClimatologyAtLevels] = weakref.WeakKeyDictionary()
+"""Climatology at the levels of live batches (batches are immutable; entries go with them),
+so the temperature and salinity steps interpolate once per batch."""
 
 
 def seafloor_depth(
