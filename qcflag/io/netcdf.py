@@ -278,16 +278,15 @@ def _floats(var: Any, source: str) -> NDArray[np.float64]:
 def _strings(var: Any, ndim: int) -> NDArray[np.object_]:
     """Text values with `ndim` dimensions (char arrays joined along their last dimension)."""
     raw = np.asarray(var.values)
-    if raw.dtype.kind == "S":
-        if raw.ndim == ndim + 1:
-            width = raw.shape[-1]
-            raw = np.ascontiguousarray(raw).view(f"S{max(width, 1)}").reshape(raw.shape[:-1])
-        out = np.char.decode(raw, "utf-8", errors="replace").astype(object)
-    elif raw.dtype.kind in "OU":
-        out = raw.astype(object)
-        out = np.array([v.decode("utf-8", "replace") if isinstance(v, bytes) else str(v)
-                        for v in out.ravel()], dtype=object).reshape(raw.shape)
-    elif raw.dtype.kind in "iu":
+    if raw.dtype.kind == "S" and raw.ndim == ndim + 1:
+        width = raw.shape[-1]
+        raw = np.ascontiguousarray(raw).view(f"S{max(width, 1)}").reshape(raw.shape[:-1])
+    if raw.dtype.kind in "SOU":
+        # decode and strip once per distinct value (per-level text repeats a few values)
+        codes, uniq = pd.factorize(raw.ravel().astype(object), use_na_sentinel=False)
+        table = np.array([_decoded(u).strip("\x00 ") for u in uniq] or [""], dtype=object)
+        return table[codes].reshape(raw.shape)
+    if raw.dtype.kind in "iu":
         out = raw.astype(str).astype(object)
     elif raw.dtype.kind == "f":
         vals = _floats(var, "")
@@ -299,6 +298,10 @@ def _strings(var: Any, ndim: int) -> NDArray[np.object_]:
         out = raw.astype(str).astype(object)
     flat = np.array([s.strip("\x00 ") for s in out.ravel()], dtype=object)
     return flat.reshape(out.shape)
+
+
+def _decoded(value: Any) -> str:
+    return value.decode("utf-8", "replace") if isinstance(value, bytes) else str(value)
 
 
 def _times(var: Any, source: str) -> NDArray[np.datetime64]:
@@ -582,7 +585,10 @@ def _from_cf(ds: Any, *, scheme: str | None, source: str) -> ProfileBatch:
 
     def lvl(var: Any, fn: Any) -> NDArray[Any]:
         if obs_dim is not None:
-            if tuple(var.dims) != (obs_dim,):
+            dims = tuple(var.dims)
+            if var.dtype.kind == "S" and len(dims) == 2:
+                dims = dims[:-1]  # a char array: its last dimension is the text length
+            if dims != (obs_dim,):
                 raise InputFileError(source, f"variable {var.name!r} has dimensions "
                                      f"{var.dims}, expected ({obs_dim!r},)", "fix the layout")
             arr = np.asarray(fn(var))
@@ -827,7 +833,25 @@ def _column_variable(values: Any, dim: str) -> tuple[NDArray[Any], dict[str, Any
         return s.to_numpy(dtype=np.float64), {"_FillValue": np.nan}
     if s.dtype.kind == "M":
         return to_ns(s), {}
-    return s.fillna("").astype(str).to_numpy(dtype=object), {}
+    return _text_variable(s.to_numpy(dtype=object))
+
+
+def _text_variable(values: Any) -> tuple[NDArray[np.str_], dict[str, Any]]:
+    """Text values as a fixed-width array written as a UTF-8 char array, and its encoding.
+
+    Missing values (None, NaN) become ``""``. The conversion runs once per distinct value
+    (a per-level column such as the flag reasons repeats a handful of values), and a char
+    array is written as one block, where variable-length strings cost one call per level.
+    """
+    flat = np.asarray(values, dtype=object).ravel()
+    if flat.size == 0:
+        return np.zeros(np.shape(values), dtype="U1"), {"dtype": "S1"}
+    codes, uniq = pd.factorize(flat, use_na_sentinel=False)
+    text = pd.Series(np.asarray(uniq, dtype=object), dtype=object).fillna("").astype(str)
+    table = np.array(text.tolist() or [""], dtype=str)
+    if table.dtype.itemsize == 0:
+        table = table.astype("U1")
+    return table[codes].reshape(np.shape(values)), {"dtype": "S1"}
 
 
 def to_dataset(
@@ -947,7 +971,7 @@ def to_dataset(
         elif vals.dtype.kind == "f":
             enc["_FillValue"] = col.attrs.get("_FillValue", np.nan)
         elif vals.dtype.kind in "OUS":
-            vals = pd.Series(vals).fillna("").astype(str).to_numpy(dtype=object)
+            vals, enc = _text_variable(vals)
         if nc != name:
             attrs["original_name"] = name
         put(nc, (OB,), vals, attrs, enc)
