@@ -836,22 +836,23 @@ def _column_variable(values: Any, dim: str) -> tuple[NDArray[Any], dict[str, Any
     return _text_variable(s.to_numpy(dtype=object))
 
 
-def _text_variable(values: Any) -> tuple[NDArray[np.str_], dict[str, Any]]:
-    """Text values as a fixed-width array written as a UTF-8 char array, and its encoding.
+def _text_variable(values: Any) -> tuple[NDArray[np.bytes_], dict[str, Any]]:
+    """Text values as fixed-width UTF-8 bytes (written as a char array), and their encoding.
 
     Missing values (None, NaN) become ``""``. The conversion runs once per distinct value
     (a per-level column such as the flag reasons repeats a handful of values), and a char
     array is written as one block, where variable-length strings cost one call per level.
+    The writer marks the variable ``_Encoding = "utf-8"``.
     """
     flat = np.asarray(values, dtype=object).ravel()
     if flat.size == 0:
-        return np.zeros(np.shape(values), dtype="U1"), {"dtype": "S1"}
+        return np.zeros(np.shape(values), dtype="S1"), {}
     codes, uniq = pd.factorize(flat, use_na_sentinel=False)
     text = pd.Series(np.asarray(uniq, dtype=object), dtype=object).fillna("").astype(str)
-    table = np.array(text.tolist() or [""], dtype=str)
+    table = np.array([t.encode("utf-8") for t in text.tolist()], dtype=np.bytes_)
     if table.dtype.itemsize == 0:
-        table = table.astype("U1")
-    return table[codes].reshape(np.shape(values)), {"dtype": "S1"}
+        table = table.astype("S1")
+    return table[codes].reshape(np.shape(values)), {}
 
 
 def to_dataset(
@@ -888,6 +889,8 @@ def to_dataset(
 
     def put(name: str, dims: tuple[str, ...], data: Any, attrs: dict[str, Any],
             encoding: dict[str, Any] | None = None) -> None:
+        if getattr(data, "dtype", None) is not None and data.dtype.kind == "S":
+            attrs = {**attrs, "_Encoding": "utf-8"}  # text as a UTF-8 char array
         ds[name] = xr.Variable(dims, data, attrs)
         ds[name].encoding = dict(encoding or {})
         taken.add(name)
