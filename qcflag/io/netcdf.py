@@ -884,15 +884,14 @@ def to_dataset(
     sch = get_scheme(batch.scheme)
     prof = batch.profiles
     P, OB = PROFILE_DIM, OBS_DIM
-    ds = xr.Dataset()
+    variables: dict[str, xr.Variable] = {}  # the Dataset is built once, at the end
     taken: set[str] = set()
 
     def put(name: str, dims: tuple[str, ...], data: Any, attrs: dict[str, Any],
             encoding: dict[str, Any] | None = None) -> None:
         if getattr(data, "dtype", None) is not None and data.dtype.kind == "S":
             attrs = {**attrs, "_Encoding": "utf-8"}  # text as a UTF-8 char array
-        ds[name] = xr.Variable(dims, data, attrs)
-        ds[name].encoding = dict(encoding or {})
+        variables[name] = xr.Variable(dims, data, attrs, encoding=dict(encoding or {}))
         taken.add(name)
 
     put("profile_id", (P,), prof["profile_id"].astype(str).to_numpy(dtype=object),
@@ -984,7 +983,7 @@ def to_dataset(
             ancillary[col.parent].append(nc)
     for v, names in ancillary.items():
         if names:
-            ds[v].attrs["ancillary_variables"] = " ".join(names)
+            variables[v].attrs["ancillary_variables"] = " ".join(names)
     line = history_line(history)
     g = dict(batch.attrs.get("global_attrs", {}))
     old = batch.attrs.get("history") or g.get("history")
@@ -994,8 +993,7 @@ def to_dataset(
     g["Conventions"] = "CF-1.13 ACDD-1.3"
     g["date_created"] = line[:20] if _TS.match(line) else line
     g["qcflag_flag_scheme"] = sch.name
-    ds.attrs = {k: g[k] for k in sorted(g)}
-    return ds
+    return xr.Dataset(variables, attrs={k: g[k] for k in sorted(g)})
 
 
 def write_netcdf(
