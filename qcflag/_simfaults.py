@@ -12,9 +12,17 @@ Truth-grade conventions (the project's own, stated here once)
   500 dbar; Argo QC manual, DOI 10.13155/33951, test 9, via ../shared/reference/
   qc-standards.md), grade 3 when it is visible but smaller (sizes are drawn from 0.05 to 4
   times the threshold, so they straddle it). Adjacent levels: 2.
-* Sensor offsets and drift: by the size of the error: 2 from 0.002 degC / 0.003, 3 from
-  0.01 (instrument accuracy class), 4 from the Argo gross-drift limits 1 degC / 0.5 (test
-  16, same source). Code 3 is Argo's "probably bad, potentially adjustable".
+* Sensor offsets and drift: by the size of the error against what a data manager can see
+  without calibration samples. 2 ('probably good': within what can be judged from the
+  profiles alone) from 0.002 degC / 0.003 (instrument accuracy class) up to the
+  *detectability* :data:`DETECTABLE`; 3 from there; 4 from the Argo gross-drift limits
+  1 degC / 0.5 (test 16, same source). Code 3 is Argo's "probably bad, potentially
+  adjustable". Detectability (this project's choice, stated in :data:`DETECTABLE`) is the
+  error a person comparing a cast's deep levels with the other casts of the same cruise can
+  tell from station-to-station variability: 0.02 in salinity and 0.1 degC in temperature,
+  about three times the median absolute deviation of a clean simulated cast's deep levels
+  from the cruise median at the same pressure (about 0.006 and 0.03 degC; checked by
+  ``tests/test_simulate.py``).
 * Thermal-lag salinity spikes, surface noise and bottom hooks: by the size of the error
   (thresholds in the code below), judgement of this project, not a published rule.
 * Stuck values, digit rollover: 4. Pressure reversals: pressure 4, temperature and
@@ -46,8 +54,11 @@ MISSING_CODE = 9
 
 # published spike thresholds (Argo test 9, via ../shared/reference/qc-standards.md 1.3)
 SPIKE_THRESHOLD = {"temperature": (6.0, 2.0), "salinity": (0.9, 0.3)}
+# error a person can tell from the other casts of a cruise in deep water (module docstring)
+DETECTABLE = {"temperature": 0.1, "salinity": 0.02}
 # (probably good, probably bad, bad) error sizes per fault family; see module docstring
-CALIBRATION = {"temperature": (0.002, 0.01, 1.0), "salinity": (0.003, 0.01, 0.5)}
+CALIBRATION = {"temperature": (0.002, DETECTABLE["temperature"], 1.0),
+               "salinity": (0.003, DETECTABLE["salinity"], 0.5)}
 THERMAL_LAG = (0.005, 0.02, 0.08)
 SURFACE = {"temperature": (0.005, 0.02, 0.3), "salinity": (0.005, 0.02, 0.2)}
 HOOK = (0.003, 0.01, 0.05)
@@ -558,7 +569,7 @@ def operator_flags(
     op_of_level: NDArray[np.int64],
     rng: np.random.Generator,
     cfg: SimulationConfig,
-) -> tuple[dict[str, NDArray[np.int8]], NDArray[np.bool_]]:
+) -> tuple[dict[str, NDArray[np.int8]], dict[str, NDArray[np.bool_]]]:
     """Write each operator's manual flags (Argo codes) and where they are wrong.
 
     Per fault event the operator may miss it entirely (all its levels flagged 1; 'probably
@@ -567,7 +578,7 @@ def operator_flags(
     their use of that grade; runs of good levels are occasionally flagged 3/4; and a fraction
     of flagged levels gets a wrong grade outright. Missing values are flagged 9.
 
-    The returned error mask is True where the manual grade of any variable differs from the
+    The returned error masks (per variable) are True where the manual grade differs from the
     true grade, except a 'probably good' level written 1 by the operator's habit.
     """
     hab = {h: np.array([o[h] for o in ops])[op_of_level] for h in HABITS}
@@ -575,7 +586,7 @@ def operator_flags(
     u_miss, u_sev, u_pg = rng.random(n_ev), rng.random(n_ev), rng.random(n_ev)
     n = book.n_levels
     flags: dict[str, NDArray[np.int8]] = {}
-    error = np.zeros(n, dtype=bool)
+    error: dict[str, NDArray[np.bool_]] = {}
     for var in VARS:  # loop over the three variables
         g = truth[var]
         ev = book.event[var]
@@ -616,5 +627,5 @@ def operator_flags(
             codes[g == 0] = NO_FLAG
         flags[var] = codes
         # writing 1 for a 'probably good' level out of habit is a style, not a mistake
-        error |= (g > 0) & (manual != g) & ~(habit & (manual == 1))
+        error[var] = (g > 0) & (manual != g) & ~(habit & (manual == 1))
     return flags, error

@@ -25,7 +25,14 @@ Clean profiles are statically stable (checked with TEOS-10 in the tests).
 *Faults* (see :data:`FAULT_KINDS`), each with a true grade per level and per variable; levels
 next to a fault are 'probably good' in truth. *Operators*, one per cruise, write the manual
 flags (Argo reference table 2 codes) with their own habits; where their flag differs from the
-truth, ``truth_manual_error`` is set.
+truth, ``truth_<variable>_manual_error`` is set.
+
+*Truth and detectability.* A level's true grade is what a careful data manager with the
+truth in hand would write from the profiles themselves. Sensor offsets and drift below what
+can be told from the other casts of the cruise (0.02 in salinity, 0.1 degC in temperature;
+see :mod:`qcflag._simfaults`) are 'probably good' (2), not 'probably bad': they need
+calibration samples, not profile QC. Default rates keep most levels good: a few percent of
+levels are truly probably bad or bad.
 
 Truth columns (per level, in ``batch.extra``)
 ---------------------------------------------
@@ -34,10 +41,13 @@ Truth columns (per level, in ``batch.extra``)
 ``truth_fault``
     Fault kind(s) affecting the level, ``;``-separated in :data:`FAULT_KINDS` order; ``""``
     where none.
-``truth_manual_error``
-    True where the operator's manual flag of any variable disagrees with the true grade
+``truth_temperature_manual_error``, ``truth_salinity_manual_error``,
+``truth_pressure_manual_error``
+    True where the operator's manual flag of that variable disagrees with its true grade
     through a miss or a mistake (a 'probably good' level written 1 out of the operator's
     habit of using 'probably good' sparingly does not count).
+``truth_manual_error``
+    The OR of the temperature and salinity manual errors (the judged variables).
 
 Profile-level truth (in ``batch.profiles``): ``truth_time``, ``truth_latitude``,
 ``truth_longitude`` (the real time and position where a ``bad_date``/``bad_position`` fault
@@ -172,6 +182,9 @@ TRUTH_COLUMNS: tuple[str, ...] = (
     "truth_salinity_grade",
     "truth_pressure_grade",
     "truth_fault",
+    "truth_temperature_manual_error",
+    "truth_salinity_manual_error",
+    "truth_pressure_manual_error",
     "truth_manual_error",
 )
 """Per-level truth columns in ``batch.extra``."""
@@ -193,7 +206,7 @@ def default_fault_rates() -> dict[str, float]:
         "spike": 0.30,
         "spike_pair": 0.10,
         "thermal_lag": 0.20,
-        "offset": 0.04,
+        "offset": 0.03,
         "drift": 0.15,
         "stuck": 0.03,
         "pressure_reversal": 0.06,
@@ -202,8 +215,8 @@ def default_fault_rates() -> dict[str, float]:
         "density_inversion": 0.08,
         "digit_rollover": 0.03,
         "missing_value": 0.06,
-        "bad_position": 0.02,
-        "bad_date": 0.02,
+        "bad_position": 0.01,
+        "bad_date": 0.01,
     }
 
 
@@ -748,7 +761,9 @@ def simulate_archive(
         "truth_salinity_grade": truth["salinity"],
         "truth_pressure_grade": truth["pressure"],
         "truth_fault": faults.fault_strings(),
-        "truth_manual_error": manual_error,
+        **{f"truth_{v}_manual_error": manual_error[v]
+           for v in ("temperature", "salinity", "pressure")},
+        "truth_manual_error": manual_error["temperature"] | manual_error["salinity"],
     })
     return ProfileBatch(
         offsets=offsets,

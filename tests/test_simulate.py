@@ -379,22 +379,60 @@ def _manual_grades(b, var):
 
 def test_manual_error_column_is_disagreement(default_run):
     b = default_run
-    err = np.zeros(b.n_levels, bool)
-    pg_only = np.ones(b.n_levels, bool)  # every disagreement is truth 2 written as 1
+    any_err = np.zeros(b.n_levels, bool)
     for v in VARS:
         t = b.extra[f"truth_{v}_grade"].to_numpy()
         m = _manual_grades(b, v)
         d = (t > 0) & (m != t)
-        err |= d
-        pg_only &= ~d | ((t == 2) & (m == 1))
-    flagged = b.extra["truth_manual_error"].to_numpy()
-    assert not np.any(flagged & ~err)  # an error is always a disagreement
-    # disagreements not counted as errors are all 'probably good' written 1 (habit)
-    assert np.all(pg_only[err & ~flagged]) and np.any(err & ~flagged)
+        flagged = b.extra[f"truth_{v}_manual_error"].to_numpy()
+        assert flagged.dtype == bool
+        assert not np.any(flagged & ~d)  # an error is always a disagreement
+        # disagreements not counted as errors are all 'probably good' written 1 (habit)
+        assert np.all(((t == 2) & (m == 1))[d & ~flagged])
+        if v != "pressure":
+            assert np.any(d & ~flagged)
+            any_err |= flagged
+    # the combined column is the OR over the judged variables
+    np.testing.assert_array_equal(b.extra["truth_manual_error"].to_numpy(), any_err)
     # operators disagree with the truth on some levels, but not on most flagged ones
     t = b.extra["truth_salinity_grade"].to_numpy()
     m = _manual_grades(b, "salinity")
     assert 0.0 < np.mean(m[t >= 3] != t[t >= 3]) < 0.6
+
+
+def test_default_scenario_is_mostly_good():
+    # most levels good; truly probably-bad-or-bad levels a few percent per variable
+    b = simulate_archive(12, seed=4, config=SimulationConfig(**SMALL))
+    for v in ("temperature", "salinity"):
+        t = b.extra[f"truth_{v}_grade"].to_numpy()
+        share = np.mean(t[t > 0] >= 3)
+        assert 0.002 < share < 0.08, (v, share)
+        assert np.mean(t[t > 0] == 1) > 0.8
+
+
+def test_calibration_faults_graded_by_detectability():
+    # offsets and drift: truth 3 only where the error exceeds what can be told from the
+    # other casts of a cruise (_simfaults.DETECTABLE), 2 below it, 4 from the gross limits
+    from qcflag._simfaults import CALIBRATION, DETECTABLE
+    from qcflag.features import cruise_deviation, deep_levels
+
+    rates = {**NO_FAULTS, "offset": 0.5}
+    b = simulate_archive(6, seed=8, config=SimulationConfig(fault_rates=rates, **SMALL))
+    clean = simulate_archive(6, seed=8, config=SimulationConfig(fault_rates=NO_FAULTS,
+                                                                **SMALL))
+    for v in ("temperature", "salinity"):
+        err = b.values(v) - clean.values(v)
+        t = b.extra[f"truth_{v}_grade"].to_numpy()
+        hit = (b.extra["truth_fault"] == "offset").to_numpy() & (np.abs(err) > 1e-9)
+        assert hit.any()
+        a = np.abs(err[hit])
+        expected = 1 + (a >= CALIBRATION[v][0]) + (a >= DETECTABLE[v]) + (a >= CALIBRATION[v][2])
+        np.testing.assert_array_equal(t[hit], expected)
+        # the detectability is several times the typical deep deviation of a clean cast
+        # from its cruise median at the same pressure
+        dev = cruise_deviation(clean, clean.values(v))
+        typical = np.nanmedian(np.abs(dev[deep_levels(clean)]))
+        assert 2.0 * typical < DETECTABLE[v] < 10.0 * typical, (v, typical)
 
 
 def _habits(**kw):
