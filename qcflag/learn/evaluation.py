@@ -27,7 +27,14 @@ if TYPE_CHECKING:
 
     from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["SUMMARY_METRICS", "CVReport", "grouped_cross_validate", "make_folds"]
+__all__ = [
+    "SUMMARY_METRICS",
+    "CVReport",
+    "fit_subsampled",
+    "grouped_cross_validate",
+    "majority_subsample",
+    "make_folds",
+]
 
 SUMMARY_METRICS: tuple[str, ...] = (
     "mae", "qwk", "roc_auc", "pr_auc", "recall_at_far", "recall_bad", "false_alarm_rate",
@@ -77,6 +84,76 @@ def make_folds(
         splits = [(np.asarray(a), np.asarray(b)) for a, b in splitter.split(
             np.zeros((y.size, 1)), y, groups)]
     return splits, method
+
+
+def majority_subsample(
+    y: ArrayLike, max_levels: int | None, *, seed: int = 0, class_weight: Any = "sqrt",
+) -> tuple[NDArray[np.int64], dict[int, float] | Any]:
+    """Rows to fit on (every level of the rarer grades, a sample of the commonest one).
+
+    The kept levels of the commonest grade are up-weighted by the inverse of the kept share,
+    folded into a per-grade weight dict, so an estimator fitted on the rows with that
+    ``class_weight`` estimates the same model as one fitted on all rows with `class_weight`
+    (in expectation). Gradient boosting bins every feature with weighted percentiles, whose
+    cost grows with the number of rows; this is what keeps training cheap.
+
+    Parameters
+    ----------
+    y : array-like of int
+        Grades of the training rows.
+    max_levels : int or None
+        Rows to keep at most (None or a larger value keeps all; at least as many of the
+        commonest grade as of the others are kept).
+    seed : int, default=0
+        Seed of the sample.
+    class_weight : {"sqrt", "balanced"}, dict or None, default="sqrt"
+        The estimator's weighting, computed on the full counts.
+
+    Returns
+    -------
+    rows : ndarray of int64
+        Sorted row indices.
+    class_weight : dict of int to float, or the input unchanged when nothing was dropped
+    """
+    y = np.asarray(y)
+    n = y.size
+    if max_levels is None or n <= max_levels:
+        return np.arange(n, dtype=np.int64), class_weight
+    cls, counts = np.unique(y, return_counts=True)
+    if isinstance(class_weight, dict):
+        w = np.array([float(class_weight.get(int(c), 1.0)) for c in cls])
+    elif class_weight in ("sqrt", "balanced"):
+        w = n / (cls.size * counts.astype(np.float64))
+        if class_weight == "sqrt":
+            w = np.sqrt(w)
+    else:
+        w = np.ones(cls.size)
+    j = int(np.argmax(counts))
+    n_other = n - int(counts[j])
+    n_keep = int(min(counts[j], max(max_levels - n_other, n_other, max_levels // 10, 1)))
+    pool = np.flatnonzero(y == cls[j])
+    rng = np.random.default_rng(seed)
+    pick = rng.choice(pool, size=n_keep, replace=False)
+    rows = np.sort(np.concatenate([np.flatnonzero(y != cls[j]), pick])).astype(np.int64)
+    w[j] *= counts[j] / n_keep
+    return rows, {int(c): float(v) for c, v in zip(cls, w, strict=True)}
+
+
+def fit_subsampled(est: Any, X: NDArray[np.float64], y: NDArray[np.int64], groups: Any,
+                   max_levels: int | None, seed: int = 0) -> Any:
+    """Clone and fit `est`, on a weighted majority subsample when it takes ``class_weight``.
+
+    Estimators without a ``class_weight`` parameter (the frequency-table baselines) are
+    fitted on all rows.
+    """
+    model = clone(est)
+    params = model.get_params()
+    if max_levels is None or "class_weight" not in params or y.size <= max_levels:
+        return model.fit(X, y, groups=groups)
+    rows, cw = majority_subsample(y, max_levels, seed=seed, class_weight=params["class_weight"])
+    model.set_params(class_weight=cw)
+    g = None if groups is None else np.asarray(groups)[rows]
+    return model.fit(X[rows], y[rows], groups=g)
 
 
 def _summarise(scores: list[dict[str, Any]]) -> dict[str, dict[str, float]]:
@@ -248,6 +325,7 @@ def grouped_cross_validate(
     false_alarm: float = 0.01,
     variable: str = "grade",
     oof_models: Iterable[str] = (),
+    max_train_levels: int | None = None,
 ) -> CVReport:
     """Cross-validate grade models by whole groups and score them side by side.
 
@@ -274,6 +352,9 @@ def grouped_cross_validate(
         Name of the variable in the report.
     oof_models : iterable of str, default=()
         Models whose out-of-fold probabilities are kept in ``report.oof``.
+    max_train_levels : int, optional
+        Fit estimators that take ``class_weight`` on at most this many training rows per
+        fold (:func:`majority_subsample`); validation always scores every level.
 
     Returns
     -------
@@ -307,7 +388,8 @@ def grouped_cross_validate(
         tr_i, va_i = cv_idx[tr], cv_idx[va]
         fold_groups.append([_jsonable(g) for g in np.unique(groups[va_i]).tolist()])
         for name, est in estimators.items():
-            model = clone(est).fit(X[tr_i], y[tr_i], groups=groups[tr_i])
+            model = fit_subsampled(est, X[tr_i], y[tr_i], groups[tr_i], max_train_levels,
+                                   seed)
             proba = model.predict_proba(X[va_i])
             pred = model.predict(X[va_i])
             if name in report.oof[variable]:
@@ -317,7 +399,8 @@ def grouped_cross_validate(
     report.holdout[variable] = {}
     if held.any():
         for name, est in estimators.items():
-            model = clone(est).fit(X[cv_idx], y[cv_idx], groups=groups[cv_idx])
+            model = fit_subsampled(est, X[cv_idx], y[cv_idx], groups[cv_idx],
+                                   max_train_levels, seed)
             report.holdout[variable][name] = score_grades(
                 y[held], model.predict_proba(X[held]), model.predict(X[held]),
                 false_alarm=false_alarm)
