@@ -18,6 +18,7 @@ or an existing cluster).
 
 from __future__ import annotations
 
+import contextlib
 import os
 import time
 from collections.abc import Iterable, Iterator, Mapping, Sequence
@@ -32,7 +33,13 @@ from qcflag.exceptions import InputFileError, QCFlagError
 if TYPE_CHECKING:
     from qcflag.profiles import ProfileBatch
 
-__all__ = ["DEFAULT_CHUNK_LEVELS", "ArchiveSummary", "FileSummary", "flag_files_parallel"]
+__all__ = [
+    "DEFAULT_CHUNK_LEVELS",
+    "ArchiveSummary",
+    "FileSummary",
+    "flag_files_parallel",
+    "warm_worker",
+]
 
 _COUNT_KEYS = ("1", "2", "3", "4", "missing")
 
@@ -312,15 +319,39 @@ def flag_one_file(
     model = _resolve_model(model)
     n_profiles = n_levels = 0
     grade_counts: dict[str, dict[str, int]] = {}
-    for _, batch in iter_batches([path]):
-        added, grade_counts = flag_batch_chunked(
-            batch, chunk_levels=chunk_levels, model=model, probabilities=probabilities,
-            **options,
-        )
-        write(batch, out_path, added=added, overwrite=overwrite, history=history)
-        n_profiles, n_levels = batch.n_profiles, batch.n_levels
+    with _local_file_locks():
+        for _, batch in iter_batches([path]):
+            added, grade_counts = flag_batch_chunked(
+                batch, chunk_levels=chunk_levels, model=model, probabilities=probabilities,
+                **options,
+            )
+            write(batch, out_path, added=added, overwrite=overwrite, history=history)
+            n_profiles, n_levels = batch.n_profiles, batch.n_levels
     return FileSummary(str(path), str(out_path), n_profiles, n_levels, grade_counts,
                        time.perf_counter() - t0)
+
+
+def _local_file_locks() -> contextlib.AbstractContextManager[Any]:
+    """Inside a dask task, make xarray lock NetCDF files with in-process locks.
+
+    xarray picks its NetCDF write lock from the active dask scheduler; in a task on a
+    dask.distributed worker that is a cluster-wide lock held by the scheduler, so every
+    variable written costs network round trips (and the first one opens a client
+    connection from the worker). A task reads and writes only its own files, and the data
+    are in memory (no dask computation runs inside), so the synchronous scheduler's
+    process-local locks are enough. Outside dask tasks this does nothing.
+    """
+    import sys
+
+    if "distributed" not in sys.modules:
+        return contextlib.nullcontext()
+    from distributed.worker import thread_state
+
+    if not getattr(thread_state, "key", None):
+        return contextlib.nullcontext()
+    import dask
+
+    return dask.config.set(scheduler="synchronous")
 
 
 # --------------------------------------------------------------------------- the driver
@@ -393,6 +424,36 @@ def _client(workers: int, scheduler: str | None) -> tuple[Any, Any]:
                            dashboard_address=None, worker_dashboard_address=None,
                            memory_limit="auto")
     return Client(cluster), cluster
+
+
+def warm_worker(rules: Any = None) -> bool:
+    """Load what every task needs (modules, reference fields, rule set) into this process.
+
+    Run on each worker once (:meth:`distributed.Client.run`) before tasks are submitted,
+    so that the first task of a worker does not pay for imports and for reading the
+    packaged climatology and bathymetry. Harmless to call again.
+
+    Parameters
+    ----------
+    rules : str, path or RuleSet, optional
+        Rule set the tasks will use (default: the standard set).
+
+    Returns
+    -------
+    bool
+        True once loaded.
+    """
+    import qcflag.io
+    import qcflag.pipeline  # noqa: F401
+    from qcflag.checks.registry import available_checks
+    from qcflag.reference import fields
+    from qcflag.rules import load_rules
+
+    available_checks()  # reference-data checks and plug-ins
+    load_rules(rules)
+    fields._climatology_grid()
+    fields._bathymetry_grid()
+    return True
 
 
 def _run_serial(
@@ -527,6 +588,7 @@ def flag_files_parallel(
             client, cluster = _client(workers, scheduler)
             try:
                 n = len(client.scheduler_info(n_workers=-1)["workers"]) or workers
+                client.run(warm_worker, options.get("rules"))  # before the first task
                 results = _run_dask(pairs, task_options, client, max(2 * n, 2), bar)
                 summary = ArchiveSummary([results[i] for i in range(len(pairs))], workers=n,
                                          scheduler=scheduler or client.scheduler.address)
