@@ -52,7 +52,7 @@ class VariableFlags:
     proba: NDArray[np.float64] | None = None
 
     def codes(self, scheme: str) -> NDArray[np.int8]:
-        """The flags as stored codes of `scheme` (see :func:`qcflag.schemes.encode`)."""
+        """Return the flags as stored codes of `scheme` (see :func:`qcflag.schemes.encode`)."""
         return encode(self.grade, self.state, scheme)
 
 
