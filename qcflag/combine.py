@@ -364,6 +364,9 @@ def fit_fusion(
         p_v_g = (cnt + 1.0) / (n_g + _N_VERDICTS)[None, :]
         p_v = (cnt.sum(axis=1) + 1.0) / (cnt.sum() + _N_VERDICTS)
         llr[j] = np.log(p_v_g) - np.log(p_v)[:, None]
+    # a check that did not apply (verdict n/a: missing value, level out of its range) is
+    # no evidence either way; only its pass/fail verdicts carry information
+    llr[:, 0, :] = 0.0
 
     # subsample for the weight fit: all bad levels plus a weighted sample of the others
     rng = np.random.default_rng(seed)
