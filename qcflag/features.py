@@ -51,6 +51,9 @@ column                          meaning
                                 position from the cruise's median position.
 ``profile_days_from_cruise``    ``log10(1 + |days|)`` between the profile's time and
                                 the cruise's median time.
+``other_missing``               1 where the other variable's value is missing (its
+                                checks, derivatives and density cannot be formed),
+                                else 0.
 ``rule_grade_pressure``         Worst rule grade of pressure at the level.
 ``rule_grade_other``            Worst rule grade of the other variable (salinity for
                                 temperature and vice versa).
@@ -396,6 +399,7 @@ def build_features(
     km, days = _position_time_context(batch, cruise)
     cols["profile_km_from_cruise"] = km[pi]
     cols["profile_days_from_cruise"] = days[pi]
+    cols["other_missing"] = (~np.isfinite(batch.values(other))).astype(np.float64)
     cols["rule_grade_pressure"] = checks.verdict("pressure").astype(np.float64)
     cols["rule_grade_other"] = checks.verdict(other).astype(np.float64)
     cols["rule_grade"] = checks.verdict(variable).astype(np.float64)
