@@ -18,8 +18,9 @@ from qcflag.learn import (
     NominalLogistic,
     OrdinalLogistic,
     RulesOnly,
+    trees,
 )
-from qcflag.learn.trees import TreeEnsemble
+from qcflag.learn.trees import TreeEnsemble, TreeForest
 
 
 @pytest.fixture(autouse=True)
@@ -207,6 +208,32 @@ def test_tree_arrays_reproduce_hist_gradient_boosting():
     c = ens.contributions(Xt)
     roots = ens.nodes["mean_value"][ens.tree_offsets[:-1]].sum()
     np.testing.assert_allclose(c.sum(axis=1), ref - ens.baseline - roots, atol=1e-9)
+
+
+def test_forest_codes_give_bit_identical_scores_in_blocks_and_threads(monkeypatch):
+    X, y = _ordinal_data(n=800, nan_share=0.1)
+    models = [HistGradientBoostingClassifier(max_iter=15, early_stopping=False, random_state=k)
+              .fit(X, (y > k).astype(int)) for k in (1, 2)]
+    ens = [TreeEnsemble.from_sklearn(m) for m in models]
+    # values exactly on split thresholds, just above them, infinities and NaN
+    thr = ens[0].nodes["threshold"][~ens[0].nodes["is_leaf"]]
+    feat = ens[0].nodes["feature"][~ens[0].nodes["is_leaf"]]
+    Xt = np.repeat(X[:40], 3, axis=0)
+    rows = np.arange(40)
+    Xt[rows, feat[:40]] = thr[:40]
+    Xt[rows + 40, feat[:40]] = np.nextafter(thr[:40], np.inf)
+    Xt[80:90, 1] = np.inf
+    Xt[90:100, 0] = -np.inf
+    Xt[100:110] = np.nan
+    Xt = np.vstack([Xt, X])
+    monkeypatch.setattr(trees, "BLOCK_LEVELS", 97)  # many blocks, a ragged last one
+    forest = TreeForest(ens)
+    assert forest.binned
+    for nt in (1, 2):
+        raw = forest.raw(Xt, n_threads=nt)
+        for k, m in enumerate(models):
+            np.testing.assert_array_equal(raw[:, k], m.decision_function(Xt))
+    np.testing.assert_allclose(ens[1].raw_numpy(Xt), raw[:, 1], rtol=0, atol=1e-12)
 
 
 def test_boosted_thresholds_match_separate_hgb_models():

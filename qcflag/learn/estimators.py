@@ -60,7 +60,7 @@ import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from qcflag.learn.trees import TreeEnsemble, expit
+from qcflag.learn.trees import TreeEnsemble, TreeForest, expit
 
 if TYPE_CHECKING:
     from numpy.typing import ArrayLike, NDArray
@@ -762,6 +762,7 @@ class CumulativeBoostedClassifier(_GradeEstimator):
             self.ensembles_.append(
                 TreeEnsemble.from_sklearn(hgb, feature_map=usable, n_features=X.shape[1]))
         self.n_iter_ = np.array(n_iter or [0], dtype=np.int64)
+        self._forest = TreeForest(self.ensembles_) if self.ensembles_ else None
         if seen.size > 1 and not self.ensembles_:  # no usable feature: class priors
             self.seen_ = np.zeros_like(self.seen_)
             self.seen_[int(np.bincount(y_idx).argmax())] = True
@@ -772,8 +773,10 @@ class CumulativeBoostedClassifier(_GradeEstimator):
         X = self._validate_predict(X)
         if not self.ensembles_:
             return np.zeros((X.shape[0], 0))
-        X = np.ascontiguousarray(X)
-        gt = np.column_stack([expit(e.raw(X)) for e in self.ensembles_])
+        forest = getattr(self, "_forest", None)
+        if forest is None:  # ensembles_ set by hand: build the evaluator without caching it
+            forest = TreeForest(self.ensembles_)
+        gt = expit(forest.raw(X))
         return np.minimum.accumulate(gt, axis=1)
 
     def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
@@ -810,6 +813,7 @@ class CumulativeBoostedClassifier(_GradeEstimator):
         ]
         if len(est.ensembles_) != max(int(np.sum(est.seen_)) - 1, 0):
             raise ValueError("number of threshold models does not match the seen classes")
+        est._forest = TreeForest(est.ensembles_) if est.ensembles_ else None
         return est
 
 

@@ -6,11 +6,16 @@ log-odds and, for every tree, its nodes (split feature, numeric threshold, where
 go, children, leaf value). It holds only numeric arrays, so it can be written to a model file
 and read back without pickle (see :mod:`qcflag.learn.store`).
 
-Prediction rebuilds scikit-learn's compiled tree predictors from the arrays when they are
-available (fast, multi-threaded) and otherwise falls back to :meth:`TreeEnsemble.raw_numpy`,
-a vectorised evaluator of our own that walks all samples one tree depth at a time. Both give
-the same raw scores; the tests check that, and that both equal the fitted classifier's own
-``decision_function``.
+Prediction goes through :class:`TreeForest`, built once per set of ensembles and cached:
+every split threshold of a feature is one of few distinct values, so the forest codes each
+input value by how many of its feature's thresholds lie below it (an 8-bit code, NaN its own
+code), and runs scikit-learn's compiled tree walkers on these codes, a cache-sized block of
+levels at a time, all trees of all ensembles per block. ``x <= t`` holds exactly when
+``code(x) <= position of t``, so the scores are bit-identical to walking the raw values
+(and to the classifier's own ``decision_function``): each level's leaf values are summed in
+the same order. :meth:`TreeEnsemble.raw_numpy` is an independent vectorised evaluator of
+our own that walks all samples one tree depth at a time; the tests check both against
+scikit-learn.
 
 Only numeric (non-categorical) splits are supported; qcflag's features are all numeric.
 """
@@ -26,7 +31,7 @@ if TYPE_CHECKING:
     from numpy.typing import NDArray
     from sklearn.ensemble import HistGradientBoostingClassifier
 
-__all__ = ["NODE_FIELDS", "TreeEnsemble", "expit"]
+__all__ = ["NODE_FIELDS", "TreeEnsemble", "TreeForest", "expit"]
 
 NODE_FIELDS: dict[str, str] = {
     "feature": "int64",
@@ -92,7 +97,7 @@ class TreeEnsemble:
     tree_offsets: NDArray[np.int64]
     nodes: dict[str, NDArray[Any]]
     n_features: int
-    _predictors: list[Any] | None = field(default=None, repr=False, compare=False)
+    _cache: TreeForest | None = field(default=None, repr=False, compare=False)
 
     # ---------------------------------------------------------------- building
     @classmethod
@@ -188,49 +193,18 @@ class TreeEnsemble:
         return int(self.tree_offsets.size - 1)
 
     # -------------------------------------------------------------- prediction
-    def _sklearn_predictors(self) -> list[Any] | None:
-        if self._predictors is not None:
-            return self._predictors
-        try:
-            from sklearn.ensemble._hist_gradient_boosting.common import (
-                PREDICTOR_RECORD_DTYPE,
-            )
-            from sklearn.ensemble._hist_gradient_boosting.predictor import TreePredictor
-        except ImportError:  # pragma: no cover - private API moved
-            return None
-        preds = []
-        empty = np.zeros((0, 8), dtype=np.uint32)
-        for t in range(self.n_trees):
-            sl = slice(int(self.tree_offsets[t]), int(self.tree_offsets[t + 1]))
-            rec = np.zeros(sl.stop - sl.start, dtype=PREDICTOR_RECORD_DTYPE)
-            rec["value"] = self.nodes["value"][sl]
-            rec["count"] = self.nodes["count"][sl]
-            rec["feature_idx"] = self.nodes["feature"][sl]
-            rec["num_threshold"] = self.nodes["threshold"][sl]
-            rec["missing_go_to_left"] = self.nodes["missing_left"][sl]
-            rec["left"] = self.nodes["left"][sl]
-            rec["right"] = self.nodes["right"][sl]
-            rec["is_leaf"] = self.nodes["is_leaf"][sl]
-            rec["bin_threshold"] = self.nodes["bin_threshold"][sl]
-            preds.append(TreePredictor(rec, empty, empty))
-        self._predictors = preds
-        return preds
+    def __getstate__(self) -> dict[str, Any]:
+        """Pickle the arrays only; the compiled evaluator is rebuilt when needed."""
+        return {**self.__dict__, "_cache": None}
+
+    def _forest(self) -> TreeForest:
+        if self._cache is None:
+            self._cache = TreeForest([self])
+        return self._cache
 
     def raw(self, X: NDArray[np.float64], *, n_threads: int | None = None) -> NDArray[np.float64]:
         """Log-odds of the positive class, shape (n_samples,)."""
-        X = np.ascontiguousarray(X, dtype=np.float64)
-        preds = self._sklearn_predictors()
-        if preds is None:  # pragma: no cover - exercised through raw_numpy in tests
-            return self.raw_numpy(X)
-        from sklearn.utils._openmp_helpers import _openmp_effective_n_threads
-
-        nt = _openmp_effective_n_threads(n_threads)
-        out = np.full(X.shape[0], self.baseline, dtype=np.float64)
-        known = np.zeros((0, 8), dtype=np.uint32)
-        fmap = np.zeros(self.n_features, dtype=np.uint32)
-        for p in preds:
-            out += p.predict(X, known, fmap, nt)
-        return out
+        return self._forest().raw(X, n_threads=n_threads)[:, 0]
 
     def _walk(self, X: NDArray[np.float64], t: int) -> tuple[NDArray[np.int64], list[Any]]:
         """Leaf (global node index) of every sample in tree `t`, and the path steps."""
@@ -297,3 +271,129 @@ class TreeEnsemble:
         )
         ens.validate()
         return ens
+
+
+#: levels per block in :meth:`TreeForest.raw` (codes of a block stay in the L2 cache)
+BLOCK_LEVELS = 16_384
+_MISSING_CODE = 255
+
+
+class TreeForest:
+    """Compiled evaluator of one or more :class:`TreeEnsemble` objects on shared codes.
+
+    Built from the ensembles' arrays (nothing computed at prediction time but the walks).
+    Features no split uses are never read; the others are coded once per block of levels
+    and shared by all ensembles (the threshold models of a cumulative classifier split on
+    the same binned features, so their thresholds coincide).
+
+    Parameters
+    ----------
+    ensembles : list of TreeEnsemble
+        Ensembles over the same input columns.
+    """
+
+    def __init__(self, ensembles: list[TreeEnsemble]) -> None:
+        self.ensembles = list(ensembles)
+        from sklearn.ensemble._hist_gradient_boosting.common import PREDICTOR_RECORD_DTYPE
+        from sklearn.ensemble._hist_gradient_boosting.predictor import TreePredictor
+
+        self.n_features = ensembles[0].n_features if ensembles else 0
+        self.baselines = [float(e.baseline) for e in ensembles]
+        feats = [e.nodes["feature"][~e.nodes["is_leaf"]] for e in ensembles]
+        thrs = [e.nodes["threshold"][~e.nodes["is_leaf"]] for e in ensembles]
+        allf = np.concatenate(feats) if feats else np.zeros(0, np.int64)
+        allt = np.concatenate(thrs) if thrs else np.zeros(0)
+        used = np.unique(allf)
+        self.dummy = used.size == 0  # no splits at all: one constant column, never read
+        if self.dummy:
+            used = np.zeros(1, dtype=np.int64)
+        self.columns = used
+        self.thresholds = [np.unique(allt[allf == f]) for f in used]
+        #: codes fit in 8 bits with one left for NaN (always so for HGB's <= 255 bins)
+        self.binned = all(t.size < _MISSING_CODE for t in self.thresholds)
+        compact = np.zeros(max(self.n_features, int(used.max()) + 1), dtype=np.int64)
+        compact[used] = np.arange(used.size)
+        empty = np.zeros((0, 8), dtype=np.uint32)
+        self.predictors: list[list[Any]] = []
+        for e in ensembles:
+            nd = e.nodes
+            rec = np.zeros(int(e.tree_offsets[-1]), dtype=PREDICTOR_RECORD_DTYPE)
+            rec["value"] = nd["value"]
+            rec["count"] = nd["count"]
+            rec["feature_idx"] = compact[nd["feature"]]
+            rec["num_threshold"] = nd["threshold"]
+            rec["missing_go_to_left"] = nd["missing_left"]
+            rec["left"] = nd["left"]
+            rec["right"] = nd["right"]
+            rec["is_leaf"] = nd["is_leaf"]
+            if self.binned:
+                inner = np.flatnonzero(~nd["is_leaf"])
+                code = np.zeros(rec.size, dtype=np.int64)
+                for j, f in enumerate(used):  # position of each threshold among its feature's
+                    sel = inner[nd["feature"][inner] == f]
+                    code[sel] = np.searchsorted(self.thresholds[j], nd["threshold"][sel])
+                rec["bin_threshold"] = code
+            off = e.tree_offsets
+            self.predictors.append([
+                TreePredictor(rec[int(off[t]):int(off[t + 1])].copy(), empty, empty)
+                for t in range(e.n_trees)
+            ])
+
+    def __getstate__(self) -> dict[str, Any]:
+        """Pickle the ensembles only (scikit-learn's walkers need writable node arrays)."""
+        return {"ensembles": self.ensembles}
+
+    def __setstate__(self, state: dict[str, Any]) -> None:
+        """Rebuild the evaluator from the pickled ensembles."""
+        self.__init__(state["ensembles"])  # type: ignore[misc]
+
+    def raw(self, X: NDArray[np.float64], *, n_threads: int | None = None) -> NDArray[np.float64]:
+        """Log-odds of every ensemble, shape (n_samples, n_ensembles).
+
+        Parameters
+        ----------
+        X : ndarray of shape (n_samples, n_features)
+            Raw features; NaN follows each split's missing-value direction.
+        n_threads : int, optional
+            Threads, each walking whole blocks of levels (default: scikit-learn's OpenMP
+            choice, which follows ``threadpoolctl`` limits).
+        """
+        from sklearn.ensemble._hist_gradient_boosting._binning import _map_to_bins
+        from sklearn.utils._openmp_helpers import _openmp_effective_n_threads
+
+        X = np.asarray(X, dtype=np.float64)
+        nt = _openmp_effective_n_threads(n_threads)
+        n = X.shape[0]
+        out = np.empty((n, len(self.predictors)), dtype=np.float64)
+        not_cat = np.zeros(self.columns.size, dtype=np.uint8)
+        known = np.zeros((0, 8), dtype=np.uint32)
+        fmap = np.zeros(self.columns.size, dtype=np.uint32)
+
+        def block(start: int) -> None:
+            # one thread per block: coarse-grained, so a busy core never stalls the others
+            stop = min(start + BLOCK_LEVELS, n)
+            vals = (np.zeros((stop - start, 1)) if self.dummy
+                    else np.ascontiguousarray(X[start:stop, self.columns]))
+            if self.binned:
+                codes = np.empty(vals.shape, dtype=np.uint8, order="F")
+                _map_to_bins(vals, self.thresholds, not_cat, _MISSING_CODE, 1, codes)
+            for k, preds in enumerate(self.predictors):
+                acc = np.full(stop - start, self.baselines[k])
+                if self.binned:
+                    for p in preds:
+                        acc += p.predict_binned(codes, _MISSING_CODE, 1)
+                else:  # pragma: no cover - more than 254 thresholds on one feature
+                    for p in preds:
+                        acc += p.predict(vals, known, fmap, 1)
+                out[start:stop, k] = acc
+
+        starts = range(0, n, BLOCK_LEVELS)
+        if nt > 1 and len(starts) > 1:
+            from concurrent.futures import ThreadPoolExecutor
+
+            with ThreadPoolExecutor(max_workers=nt) as pool:
+                list(pool.map(block, starts))
+        else:
+            for start in starts:
+                block(start)
+        return out
