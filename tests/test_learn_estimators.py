@@ -178,6 +178,19 @@ def test_linear_arrays_reproduce_the_fitted_pipeline():
                                    rtol=1e-10, atol=1e-12)
 
 
+def test_fused_linear_scores_equal_the_standardised_product(monkeypatch):
+    from qcflag.learn import estimators
+
+    X, y = _ordinal_data(n=1000, nan_share=0.2)
+    monkeypatch.setattr(estimators, "_BLOCK_LEVELS", 77)  # several blocks, a ragged last one
+    for est in (OrdinalLogistic(), NominalLogistic()):
+        est.fit(X, y)
+        coef = est.coef_ if est.coef_.ndim == 1 else est.coef_.T
+        Z = est.pipeline_[:-1].transform(X)
+        fused = estimators._linear_scores(X, est.fill_, est.mean_, est.scale_, coef)
+        np.testing.assert_allclose(fused, Z @ coef, rtol=0, atol=1e-12)
+
+
 def test_ordinal_logistic_predict_matches_mord_rule():
     X, y = _ordinal_data()
     est = OrdinalLogistic(max_samples=None).fit(X, y)

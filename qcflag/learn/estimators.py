@@ -259,6 +259,32 @@ def _standardise(
     return Z
 
 
+_BLOCK_LEVELS = 8192
+
+
+def _linear_scores(
+    X: NDArray[np.float64], fill: NDArray[np.float64], mean: NDArray[np.float64],
+    scale: NDArray[np.float64], coef: NDArray[np.float64],
+) -> NDArray[np.float64]:
+    """``_standardise(X, ...) @ coef`` in one cache-blocked pass, shape (n, k) or (n,).
+
+    The centring and scaling are folded into the weights (``coef / scale``) and an offset,
+    so each block of levels is imputed and arcsinh-transformed in place and multiplied
+    once. Equal to the unfused product up to rounding (about 1e-15 relative).
+    """
+    W = coef / (scale if coef.ndim == 1 else scale[:, None])
+    offset = -(mean @ W)
+    n = X.shape[0]
+    out = np.empty((n, *coef.shape[1:]), dtype=np.float64)
+    for start in range(0, n, _BLOCK_LEVELS):
+        Z = np.array(X[start:start + _BLOCK_LEVELS], dtype=np.float64, order="C")
+        np.copyto(Z, np.broadcast_to(fill, Z.shape), where=np.isnan(Z))
+        np.arcsinh(Z, out=Z)
+        np.matmul(Z, W, out=out[start:start + _BLOCK_LEVELS])
+    out += offset
+    return out
+
+
 def _subsample(
     y_idx: NDArray[np.int64], sw: NDArray[np.float64], max_samples: int | None, seed: int
 ) -> tuple[NDArray[np.int64], NDArray[np.float64]]:
@@ -533,7 +559,7 @@ class OrdinalLogistic(_GradeEstimator):
         n_seen = int(self.seen_.sum())
         if n_seen < 2:
             return self._pad(np.ones((X.shape[0], 1)))
-        eta = _standardise(X, self.fill_, self.mean_, self.scale_) @ self.coef_
+        eta = _linear_scores(X, self.fill_, self.mean_, self.scale_, self.coef_)
         cum = _sigmoid(self.theta_[None, :] - eta[:, None])  # P(y <= k)
         cum = np.hstack([np.zeros((X.shape[0], 1)), cum, np.ones((X.shape[0], 1))])
         return self._pad(np.diff(cum, axis=1))
@@ -644,7 +670,7 @@ class NominalLogistic(_GradeEstimator):
         X = self._validate_predict(X)
         if self.seen_.sum() < 2:
             return self._pad(np.ones((X.shape[0], 1)))
-        z = _standardise(X, self.fill_, self.mean_, self.scale_) @ self.coef_.T
+        z = _linear_scores(X, self.fill_, self.mean_, self.scale_, self.coef_.T)
         z += self.intercept_
         z -= z.max(axis=1, keepdims=True)
         np.exp(z, out=z)
