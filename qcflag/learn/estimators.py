@@ -272,7 +272,8 @@ def _linear_scores(
     so each block of levels is imputed and arcsinh-transformed in place and multiplied
     once. Equal to the unfused product up to rounding (about 1e-15 relative).
     """
-    W = coef / (scale if coef.ndim == 1 else scale[:, None])
+    # C order whatever the layout of coef, so a reloaded model multiplies identically
+    W = np.ascontiguousarray(coef / (scale if coef.ndim == 1 else scale[:, None]))
     offset = -(mean @ W)
     n = X.shape[0]
     out = np.empty((n, *coef.shape[1:]), dtype=np.float64)
