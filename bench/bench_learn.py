@@ -9,8 +9,9 @@ Features come from the real chain (simulated archive -> standard rules -> build_
 the matrix has the width and NaN pattern of production. Figures are measured in one run:
 training time of the ordinal logistic model (LogisticAT, default subsampling of the commonest
 grade) and of the cumulative boosted model, and prediction throughput of each (levels per
-second of predict_proba on the full matrix). Targets: linear training < 60 s, prediction
->= 1,000,000 levels/s.
+second of predict_proba on the full matrix, and its ratio to the target). Targets: linear
+training < 60 s, prediction >= 1,000,000 levels/s. BLAS/OpenMP are limited to one thread
+(the machine is shared), so the figures are single-core.
 """
 
 from __future__ import annotations
@@ -39,6 +40,13 @@ def _features(n_cruises: int) -> tuple[np.ndarray, np.ndarray, float]:
 
 def main(quick: bool = False) -> list[dict[str, Any]]:
     """Measure and print the learning figures; return them as rows for run_all."""
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):
+        return _measure(quick)
+
+
+def _measure(quick: bool) -> list[dict[str, Any]]:
     from qcflag.learn import CumulativeBoostedClassifier, OrdinalLogistic
 
     X, y, t_feat = _features(2 if quick else 30)
@@ -67,6 +75,8 @@ def main(quick: bool = False) -> list[dict[str, Any]]:
         rows.append({"benchmark": "learn", "figure": f"{name} prediction", "value": rate,
                      "unit": "levels/s", "target": ">= 1,000,000",
                      "met": rate >= 1_000_000})
+        rows.append({"benchmark": "learn", "figure": f"{name} prediction / target",
+                     "value": rate / 1_000_000, "unit": "x", "target": ">= 1", "met": None})
     for r in rows:
         print(f"{r['figure']:<36} {r['value']:>14,.2f} {r.get('unit', ''):<9} "
               f"{r.get('target', '')}")

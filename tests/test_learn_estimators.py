@@ -41,7 +41,7 @@ def _ordinal_data(n=1500, seed=0, p=5, nan_share=0.05):
 
 # ---------------------------------------------------------------- sklearn's checks
 # classes=None: the checks use labels such as 0/1/2 and strings, not grades 1-4.
-_SMALL_BOOST = {"max_iter": 10, "min_samples_leaf": 5}
+_SMALL_BOOST = {"max_iter": 4, "min_samples_leaf": 5}
 _CHECKED = [
     OrdinalLogistic(classes=None, max_iter=100),
     OrdinalLogistic("it", classes=None, max_iter=100),
@@ -95,7 +95,7 @@ _GRADE_MODELS = [
     lambda: OrdinalLogistic(max_iter=150),
     lambda: OrdinalLogistic("it", max_iter=150),
     lambda: NominalLogistic(),
-    lambda: CumulativeBoostedClassifier(max_iter=15),
+    lambda: CumulativeBoostedClassifier(max_iter=6),
     lambda: AlwaysGood(),
     lambda: RulesOnly(column=0),
 ]
@@ -251,9 +251,9 @@ def test_forest_codes_give_bit_identical_scores_in_blocks_and_threads(monkeypatc
 
 def test_boosted_thresholds_match_separate_hgb_models():
     X, y = _ordinal_data(n=600)
-    est = CumulativeBoostedClassifier(max_iter=10, class_weight=None).fit(X, y)
+    est = CumulativeBoostedClassifier(max_iter=5, class_weight=None).fit(X, y)
     for k, ens in enumerate(est.ensembles_, start=1):
-        hgb = HistGradientBoostingClassifier(max_iter=10, early_stopping=False,
+        hgb = HistGradientBoostingClassifier(max_iter=5, early_stopping=False,
                                              random_state=0).fit(X, (y > k).astype(int))
         np.testing.assert_allclose(ens.raw(X), hgb.decision_function(X), atol=1e-12)
 
