@@ -107,6 +107,14 @@ decrease with ``k``, so the three tests never contradict each other.
 _VERDICT_ROW = np.array([0, 1, 1, 2, 3], dtype=np.int64)
 _N_VERDICTS = 4
 _EPS = 1e-6
+MODEL_MIX = 0.05
+"""Share of a uniform distribution mixed into the model's probabilities before the pool.
+
+``log((1 - MODEL_MIX) p + MODEL_MIX / 4)`` bounds what one confidently wrong model
+probability costs in the fitted likelihood (at most ``log(80)`` nats instead of
+``log(1e6)``): out-of-fold models on a few cruises are sometimes sure and wrong (manual
+flags carry operator mistakes), and without the bound a handful of such levels drove the
+fitted model weight to zero, leaving rules-only flags."""
 
 
 class DecisionError(QCFlagError, ValueError):
@@ -213,7 +221,7 @@ def _pool_scores(
     n = proba.shape[0]
     r = rows.shape[1]
     z = np.zeros((n, 4, 1 + r + 3))
-    z[:, :, 0] = np.log(np.clip(proba, _EPS, 1.0))
+    z[:, :, 0] = np.log((1.0 - MODEL_MIX) * np.clip(proba, 0.0, 1.0) + MODEL_MIX / 4.0)
     for j in range(r):
         z[:, :, 1 + j] = llr[j][rows[:, j]]
     for g in range(1, 4):
@@ -326,7 +334,8 @@ def fit_fusion(
     variable : str
         Variable fitted.
     max_levels : int, default=150_000
-        Levels used for the weight fit: every probably-bad or bad level and a random sample
+        Levels where a :data:`FORCING` check fires are left out (the pool never decides
+        them). Levels used for the weight fit: every probably-bad or bad level and a random sample
         of the others, reweighted so the fit is unbiased.
     calibrate : bool, default=True
         Fit the isotonic calibration of ``P(grade >= 3)``.
@@ -346,6 +355,11 @@ def fit_fusion(
         raise QCFlagError(f"{variable}: out-of-fold probabilities, grades and checks differ "
                           "in length; fit on the same levels")
     keep = (y >= 1) & (y <= 4) & np.isfinite(p).all(axis=1)
+    # levels a forcing check decides never reach the pool: leave them out of its fit (a
+    # whole profile with an impossible date would otherwise dominate the weights)
+    for (name, v), r in checks_oof.results.items():
+        if v == variable and name in FORCING:
+            keep &= ~(r.grade >= 3)
     idx = np.flatnonzero(keep)
     if idx.size == 0:
         raise QCFlagError(f"{variable}: no assessed levels to fit the fusion on")

@@ -256,3 +256,32 @@ def test_explain_matches_combine_with_attribution():
     np.testing.assert_array_equal(direct.reasons, later.reasons)
     np.testing.assert_array_equal(direct.grade, later.grade)
     assert any("model:" in r for r in later.reasons)
+
+
+def test_not_applicable_verdict_is_no_evidence():
+    # a check that did not apply (verdict 0) says nothing about the grade, even when the
+    # levels where it did not apply happen to be mostly bad in the fitting data
+    rng = np.random.default_rng(5)
+    n = 5000
+    y = np.where(rng.random(n) < 0.1, 3, 1)
+    proba = np.tile([0.85, 0.05, 0.05, 0.05], (n, 1))
+    na_when_bad = np.where((y == 3) & (rng.random(n) < 0.8), 0, 1)
+    fusion = fit_fusion(y, proba, _table({"density_inversion": na_when_bad}), VAR)
+    np.testing.assert_array_equal(np.array(fusion.rules["density_inversion"]["llr"])[0], 0.0)
+
+
+def test_forced_levels_are_left_out_of_the_fusion_fit():
+    y, proba, checks = _synthetic_oof(6000, 4)
+    n = y.size
+    forced = np.zeros(n, dtype=bool)
+    forced[:500] = True  # a block decided by a forcing check, manual 3, model says good
+    y2 = np.where(forced, 3, y)
+    p2 = np.where(forced[:, None], [0.97, 0.01, 0.01, 0.01], proba)
+    grades = {name: checks.results[(name, VAR)].grade for name, _ in checks.results}
+    grades["global_range"] = np.where(forced, 4, 1)
+    with_block = fit_fusion(y2, p2, _table(grades), VAR)
+    keep = np.where(forced, 0, y)  # the same fit without those levels
+    without = fit_fusion(keep, proba, checks, VAR)
+    assert with_block.n_levels == without.n_levels == n - 500
+    assert with_block.model_weight == pytest.approx(without.model_weight, rel=1e-6)
+    assert with_block.model_weight > 0.3
