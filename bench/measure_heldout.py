@@ -190,6 +190,10 @@ def main() -> None:
         thr = np.quantile(p_bad[good], 0.99, method="higher")
         print(f"{var:<12} {'(diagnostic) best at 1% false alarms':<36} "
               f"{(p_bad[bad] > thr).mean():>16.3f} {(p_bad[good] > thr).mean():>22.4f}")
+        free = bad & ~result[var].forced
+        g = result[var].grade
+        print(f"{var:<12} {'combiner, levels no rule forced':<36} "
+              f"{(g[free] >= 3).mean() if free.any() else float('nan'):>16.3f}")
         print(f"{'':<12} truly probably bad or bad: {bad.sum()} levels "
               f"({(result[var].forced & bad).sum()} forced by a rule); truly good: "
               f"{good.sum()}")
