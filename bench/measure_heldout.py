@@ -143,7 +143,7 @@ def main() -> None:
 
     folds = 2 if args.quick else args.folds
     params = {"max_iter": 50} if args.quick else None
-    max_train = 4000
+    max_train = 40_000  # train_model default, as qcflag demo
     limits = threadpool_limits(limits=1)  # shared 2-core machine: no oversubscription
     t0 = time.perf_counter()
     batch = simulate_archive(args.cruises, seed=args.seed, config=demo_config())
