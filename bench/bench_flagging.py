@@ -63,6 +63,10 @@ s = flag_files_parallel(spec["files"], spec["out"], workers=spec["workers"],
                         scheduler=scheduler, history=spec["history"], progress=False,
                         overwrite=True)
 info.update(seconds=time.perf_counter() - t0, n_levels=s.n_levels)
+# this process's own peak RSS (VmHWM restarts at exec; rusage maxrss can carry the parent's)
+for line in open("/proc/self/status"):
+    if line.startswith("VmHWM:"):
+        info["vmhwm_kib"] = int(line.split()[1])
 if client is not None:
     client.close()
     cluster.close()
@@ -121,12 +125,12 @@ def run_child(files: list[Path], out: Path, workers: int, *,
         wall = time.perf_counter() - t0
     proc.returncode = os.waitstatus_to_exitcode(status)
     stdout, stderr = log_out.read_text(), log_err.read_text()
-    maxrss_kib = usage.ru_maxrss
+    maxrss_kib = usage.ru_maxrss  # may include the parent's peak before exec (Linux)
     if proc.returncode != 0:
         raise RuntimeError(f"benchmark child failed:\n{stderr[-3000:]}")
     info = json.loads(stdout.strip().splitlines()[-1])
     return {"seconds": float(info["seconds"]), "wall": wall, "n_levels": info["n_levels"],
-            "maxrss_gib": maxrss_kib / 2**20,
+            "maxrss_gib": info.get("vmhwm_kib", maxrss_kib) / 2**20,
             "start_seconds": float(info.get("start_seconds", 0.0)),
             "warm_seconds": float(info.get("warm_seconds", 0.0))}
 
@@ -186,7 +190,7 @@ def main(quick: bool = False) -> list[dict[str, object]]:
              "value": lps, "unit": "levels/s",
              "target": f">= {TARGETS['levels_per_second']:,.0f}",
              "met": lps >= TARGETS["levels_per_second"]},
-            {"benchmark": "flagging", "figure": f"peak memory, {big} levels (max RSS)",
+            {"benchmark": "flagging", "figure": f"peak memory, {big} levels (child's VmHWM)",
              "value": mem, "unit": "GiB", "target": f"< {TARGETS['peak_memory_gib']}",
              "met": mem < TARGETS["peak_memory_gib"]},
             {"benchmark": "flagging",
