@@ -62,7 +62,7 @@ def demo_cmd(
     out: Annotated[Path, typer.Option("--out", "-o", help="Folder to create.",
                                       file_okay=False)] = Path("qcflag-demo"),
     cruises: Annotated[int, typer.Option(
-        help="Cruises to simulate; the last third are held out.", min=3, max=60)] = 6,
+        help="Cruises to simulate; the last third are held out.", min=3, max=60)] = 12,
     seed: Annotated[int, typer.Option(help="Random seed (same seed, same demo).", min=0)] = 0,
     overwrite: Annotated[bool, typer.Option(
         "--overwrite", help="Replace an existing demo folder.")] = False,
