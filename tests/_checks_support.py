@@ -31,3 +31,24 @@ def make_batch(*profiles: dict, lat: float = -30.0, lon: float = -20.0) -> Profi
             "salinity": np.asarray(prof.get("salinity", [35.0] * n), dtype=float),
         }))
     return ProfileBatch.from_levels(pd.concat(rows, ignore_index=True))
+
+
+def read_argo_netcdf4(files: list[Path]) -> ProfileBatch:
+    """Read Argo files with netCDF4 directly (adjusted values), independent of qcflag.io."""
+    import netCDF4
+
+    rows = []
+    for f in files:
+        with netCDF4.Dataset(f) as d:
+            for i in range(d["PRES_ADJUSTED"].shape[0]):
+                p = np.ma.filled(d["PRES_ADJUSTED"][i].astype(float), np.nan)
+                keep = ~np.isnan(p)
+                t = np.ma.filled(d["TEMP_ADJUSTED"][i].astype(float), np.nan)[keep]
+                s = np.ma.filled(d["PSAL_ADJUSTED"][i].astype(float), np.nan)[keep]
+                when = pd.Timestamp("1950-01-01") + pd.to_timedelta(float(d["JULD"][i]), "D")
+                rows.append(pd.DataFrame({
+                    "profile_id": f"{f.stem}_{i}", "cruise": f.stem, "time": when,
+                    "latitude": float(d["LATITUDE"][i]), "longitude": float(d["LONGITUDE"][i]),
+                    "pressure": p[keep], "temperature": t, "salinity": s,
+                }))
+    return ProfileBatch.from_levels(pd.concat(rows, ignore_index=True))

@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import gsw
-import netCDF4
 import numpy as np
 import pandas as pd
 import pytest
+from _checks_support import read_argo_netcdf4
 
 from qcflag.checks.climatology import DEFAULT_THRESHOLD, climatology_anomaly
 from qcflag.profiles import ProfileBatch
@@ -112,27 +112,9 @@ def test_batch_equals_profiles_one_by_one():
         np.testing.assert_array_equal(whole.grade, np.concatenate([p.grade for p in parts]))
 
 
-def _read_argo(files):
-    rows = []
-    for f in files:
-        with netCDF4.Dataset(f) as d:
-            for i in range(d["PRES_ADJUSTED"].shape[0]):
-                p = np.ma.filled(d["PRES_ADJUSTED"][i].astype(float), np.nan)
-                keep = ~np.isnan(p)
-                t = np.ma.filled(d["TEMP_ADJUSTED"][i].astype(float), np.nan)[keep]
-                s = np.ma.filled(d["PSAL_ADJUSTED"][i].astype(float), np.nan)[keep]
-                when = pd.Timestamp("1950-01-01") + pd.to_timedelta(float(d["JULD"][i]), "D")
-                rows.append(pd.DataFrame({
-                    "profile_id": f"{f.stem}_{i}", "cruise": f.stem, "time": when,
-                    "latitude": float(d["LATITUDE"][i]), "longitude": float(d["LONGITUDE"][i]),
-                    "pressure": p[keep], "temperature": t, "salinity": s,
-                }))
-    return ProfileBatch.from_levels(pd.concat(rows, ignore_index=True))
-
-
 def test_real_argo_profiles(argo_files):
     # real, expert-checked delayed-mode/real-time Argo profiles (../shared/data/argo)
-    b = _read_argo(argo_files)
+    b = read_argo_netcdf4(argo_files)
     for v in ("temperature", "salinity"):
         res = climatology_anomaly(b, variable=v)
         have = ~np.isnan(b.values(v))
