@@ -276,3 +276,110 @@ def test_empty_profiles_dropped(tmp_path):
     ds2["row_size"] = ("profile", rs, ds["row_size"].attrs)
     out = from_dataset(ds2, source="mem")
     assert out.n_profiles == 3 and out.attrs["dropped_profiles"] == 1
+
+
+# ------------------------------------------- direct netCDF4 reader/writer vs xarray's
+def _odd_batch():
+    """A simulated batch whose profile and level columns cover every dtype the writer sees."""
+    import pandas as pd
+
+    from qcflag import ProfileBatch
+    from qcflag.simulate import SimulationConfig, simulate_archive
+
+    b = simulate_archive(2, seed=5, config=SimulationConfig(
+        casts_per_cruise=2, floats_per_cruise=0, max_cast_pressure=200.0))
+    rng = np.random.default_rng(1)
+    prof = b.profiles.copy()
+    n = len(prof)
+    prof.loc[1, "time"] = pd.NaT
+    prof["ival"] = pd.array([1, None, *range(n - 2)], dtype="Int64")
+    prof["fval"] = rng.normal(size=n)
+    prof.loc[0, "fval"] = np.nan
+    prof["bval"] = rng.random(n) < 0.5
+    prof["uval"] = ["ünï", None] + ["x" * k for k in range(n - 2)]
+    prof["bad name!"] = np.arange(n)
+    extra = b.extra.drop(columns=[c for c in b.extra.columns if c.startswith("truth_time")])
+    extra["lev_text"] = np.where(rng.random(b.n_levels) < 0.3, "é;x", None)
+    extra["lev_int"] = np.arange(b.n_levels)
+    extra["lev_float"] = rng.normal(size=b.n_levels)
+    extra["lev_i64na"] = pd.array(np.where(rng.random(b.n_levels) < 0.1, None, 3),
+                                  dtype="Int64")
+    prof = prof.drop(columns=[c for c in prof.columns if c == "truth_time"])
+    return ProfileBatch(offsets=b.offsets, pressure=b.pressure, temperature=b.temperature,
+                        salinity=b.salinity, profiles=prof, flags=b.flags, scheme=b.scheme,
+                        extra=extra, attrs=b.attrs)
+
+
+def test_direct_writer_byte_identical_to_xarray(tmp_path, monkeypatch):
+    """write_netcdf issues netCDF4 calls itself; the file must equal xarray's to_netcdf."""
+    from qcflag.io import netcdf
+    from qcflag.pipeline import flag_batch, flagged_columns
+
+    b = _odd_batch()
+    added = flagged_columns(b, flag_batch(b))
+    cases = [(b, None), (b, added), (read_csv(CANONICAL), None), (b.select([0]), None)]
+    for i, (batch, add) in enumerate(cases):
+        specs, _ = netcdf._output_variables(batch, add, HIST)
+        assert netcdf._direct_plan(specs) is not None  # the direct path is the one tested
+        direct = write_netcdf(batch, tmp_path / f"d{i}.nc", added=add, history=HIST)
+        to_dataset(batch, added=add, history=HIST).to_netcdf(
+            tmp_path / f"x{i}.nc", engine="netcdf4", format="NETCDF4")
+        assert direct.read_bytes() == (tmp_path / f"x{i}.nc").read_bytes(), i
+    # a column the direct writer does not handle (datetime without units) goes to xarray
+    batch = b.select([0, 1])
+    prof = batch.profiles.copy()
+    prof["when"] = prof["time"]
+    from qcflag import ProfileBatch
+
+    odd = ProfileBatch(offsets=batch.offsets, pressure=batch.pressure,
+                       temperature=batch.temperature, salinity=batch.salinity, profiles=prof,
+                       flags=batch.flags, scheme=batch.scheme, extra=batch.extra)
+    assert netcdf._direct_plan(netcdf._output_variables(odd, None, HIST)[0]) is None
+    a = write_netcdf(odd, tmp_path / "odd.nc", history=HIST)
+    to_dataset(odd, history=HIST).to_netcdf(tmp_path / "oddx.nc", engine="netcdf4")
+    assert a.read_bytes() == (tmp_path / "oddx.nc").read_bytes()
+
+
+def _same_batch(a, b):
+    import pandas as pd
+
+    np.testing.assert_array_equal(a.offsets, b.offsets)
+    for v in ("pressure", "temperature", "salinity"):
+        np.testing.assert_array_equal(a.values(v), b.values(v))
+    assert a.flags.keys() == b.flags.keys()
+    for k in a.flags:
+        np.testing.assert_array_equal(a.flags[k], b.flags[k])
+    pd.testing.assert_frame_equal(a.profiles, b.profiles)
+    if a.extra is None:
+        assert b.extra is None
+    else:
+        pd.testing.assert_frame_equal(a.extra, b.extra)
+    assert a.attrs == b.attrs and a.scheme == b.scheme
+
+
+def test_direct_reader_equals_xarray_reader(tmp_path, monkeypatch):
+    """read_netcdf reads contiguous ragged files with netCDF4; xarray must give the same batch."""
+    from qcflag.io import netcdf
+    from qcflag.pipeline import flag_batch, flagged_columns
+
+    b = _odd_batch()
+    paths = [write_netcdf(b, tmp_path / "odd.nc", history=HIST),
+             write_netcdf(b, tmp_path / "flagged.nc", history=HIST,
+                          added=flagged_columns(b, flag_batch(b))),
+             *sorted(DATA.glob("layout_*.nc")), DATA / "argo_synthetic.nc"]
+    direct = {p: read_netcdf(p) for p in paths}
+    taken = [p for p in paths if netcdf._open_raw(p) is not None]
+    assert {p.name for p in taken} == {"odd.nc", "flagged.nc", "layout_contiguous.nc"}
+    monkeypatch.setattr(netcdf, "_open_raw", lambda path: None)  # xarray only
+    for p in paths:
+        _same_batch(direct[p], read_netcdf(p))
+
+
+def test_direct_reader_errors_are_xarrays(tmp_path):
+    """A bad contiguous ragged file still gives the one-line error naming the variable."""
+    b = read_csv(CANONICAL)
+    p = write_netcdf(b, tmp_path / "a.nc", history=HIST)
+    with netCDF4.Dataset(p, "a") as nc:
+        nc["row_size"][0] = 10_000  # more levels than the sample dimension holds
+    with pytest.raises(InputFileError, match=r"row_size.*sums to"):
+        read_netcdf(p)

@@ -222,6 +222,12 @@ def read_netcdf(path: str | os.PathLike[str], *, scheme: str | None = None) -> P
         raise IsADirectoryError(21, "is a directory", str(path))
     _check_magic(path)
     _check_classic_header(path)
+    raw = _open_raw(path)
+    if raw is not None:
+        try:
+            return from_dataset(raw, scheme=scheme, source=str(path))  # type: ignore[arg-type]
+        except Exception:  # the xarray path below gives the error (or reads the file)
+            pass
     try:
         with xr.open_dataset(path, engine="netcdf4", decode_cf=False, mask_and_scale=False,
                              decode_times=False, cache=False) as ds:
@@ -233,6 +239,103 @@ def read_netcdf(path: str | os.PathLike[str], *, scheme: str | None = None) -> P
         raise InputFileError(path, f"cannot read the NetCDF file ({why})",
                              "it is probably truncated or corrupt; fetch it again") from None
     return from_dataset(ds, scheme=scheme, source=str(path))
+
+
+class _RawVariable:
+    """One variable of a file opened by :func:`_open_raw`.
+
+    It offers what :func:`from_dataset` uses of an ``xarray.Variable`` from
+    ``open_dataset(decode_cf=False, mask_and_scale=False)``.
+    """
+
+    __slots__ = ("attrs", "dims", "encoding", "name", "values")
+
+    def __init__(self, name: str, dims: tuple[str, ...], attrs: dict[str, Any],
+                 encoding: dict[str, Any], values: NDArray[Any]) -> None:
+        self.name, self.dims, self.attrs, self.encoding = name, dims, attrs, encoding
+        self.values = values
+
+    @property
+    def dtype(self) -> np.dtype[Any]:
+        return self.values.dtype
+
+    @property
+    def ndim(self) -> int:
+        return self.values.ndim
+
+    @property
+    def shape(self) -> tuple[int, ...]:
+        return self.values.shape
+
+
+class _RawDataset:
+    """A file's root group read eagerly with netCDF4, shaped like the xarray dataset."""
+
+    def __init__(self, variables: dict[str, _RawVariable], attrs: dict[str, Any],
+                 sizes: dict[str, int]) -> None:
+        self.variables, self.attrs, self.sizes = variables, attrs, sizes
+        self.dims = sizes
+
+    def __getitem__(self, name: str) -> _RawVariable:
+        return self.variables[name]
+
+
+def _open_raw(path: Path) -> _RawDataset | None:
+    """Read a CF contiguous ragged file straight through netCDF4, or None to use xarray.
+
+    xarray's per-variable wrapping, locking and file-manager round trips cost ~3 ms per
+    variable; this reads the same raw values and attributes that
+    ``xr.open_dataset(path, decode_cf=False, mask_and_scale=False).load()`` gives
+    (attributes as ``getncattr`` returns them, the ``_FillValue`` of text as bytes,
+    ``least_significant_digit`` moved to the encoding, variable-length strings as object
+    arrays, char arrays as ``S1``, dimensions as used by the variables). Files it is not
+    sure about (Argo layout, no count variable, enum/compound/vlen types, a variable named
+    like a dimension, any read error) get None, and the caller goes through xarray.
+    """
+    try:
+        import netCDF4
+
+        with netCDF4.Dataset(os.fspath(path), mode="r") as nc:
+            if "N_PROF" in nc.dimensions:
+                return None
+            found: list[tuple[str, Any, dict[str, Any]]] = []
+            for name, var in nc.variables.items():
+                attrs = {k: var.getncattr(k) for k in var.ncattrs()}
+                found.append((name, var, attrs))
+            if not any("sample_dimension" in a for _, _, a in found):
+                return None
+            dim_names = set(nc.dimensions)
+            variables: dict[str, _RawVariable] = {}
+            sizes: dict[str, int] = {}
+            for name, var, attrs in found:
+                if name in dim_names or not isinstance(name, str):
+                    return None
+                dt = var.datatype
+                vlen_str = isinstance(dt, netCDF4.VLType) and var.dtype is str
+                if not vlen_str and not isinstance(dt, np.dtype):
+                    return None
+                var.set_auto_maskandscale(False)
+                var.set_auto_chartostring(False)
+                dims = tuple(var.dimensions)
+                shape = tuple(int(n) for n in var.shape)
+                values = var[...]
+                if vlen_str:
+                    values = np.asarray(values, dtype=object).reshape(shape)
+                values = np.asarray(values)
+                if values.shape != shape or isinstance(values, np.ma.MaskedArray):
+                    return None
+                if values.dtype.kind == "S" and "_FillValue" in attrs:
+                    attrs["_FillValue"] = np.bytes_(attrs["_FillValue"])
+                encoding: dict[str, Any] = {"dtype": var.dtype}
+                if "least_significant_digit" in attrs:
+                    encoding["least_significant_digit"] = attrs.pop("least_significant_digit")
+                for d, n in zip(dims, shape, strict=True):
+                    sizes.setdefault(d, n)
+                variables[name] = _RawVariable(name, dims, attrs, encoding, values)
+            gattrs = {k: nc.getncattr(k) for k in nc.ncattrs()}
+    except Exception:  # whatever went wrong, the xarray path reports it properly
+        return None
+    return _RawDataset(variables, gattrs, sizes)
 
 
 def _attr(var: Any, key: str) -> Any:
@@ -847,7 +950,7 @@ def _text_variable(values: Any) -> tuple[NDArray[np.bytes_], dict[str, Any]]:
     flat = np.asarray(values, dtype=object).ravel()
     if flat.size == 0:
         return np.zeros(np.shape(values), dtype="S1"), {}
-    codes, uniq = pd.factorize(flat, use_na_sentinel=False)
+    codes, uniq = _factorize_text(flat)
     text = pd.Series(np.asarray(uniq, dtype=object), dtype=object).fillna("").astype(str)
     table = np.array([t.encode("utf-8") for t in text.tolist()], dtype=np.bytes_)
     if table.dtype.itemsize == 0:
@@ -855,43 +958,27 @@ def _text_variable(values: Any) -> tuple[NDArray[np.bytes_], dict[str, Any]]:
     return table[codes].reshape(np.shape(values)), {}
 
 
-def to_dataset(
+_Spec = tuple[tuple[str, ...], Any, dict[str, Any], dict[str, Any]]
+"""One output variable: dimensions, data, attributes, encoding (as for ``xr.Variable``)."""
+
+
+def _output_variables(
     batch: ProfileBatch,
-    *,
-    added: Mapping[str, AddedColumn] | None = None,
-    history: str | None = None,
-) -> xr.Dataset:
-    """Return the batch as a CF-1.13 contiguous ragged profile dataset.
-
-    Parameters
-    ----------
-    batch : ProfileBatch
-        The batch.
-    added : mapping of str to AddedColumn, optional
-        Per-level variables to add (e.g. automatic flags), listed in their parent's
-        ``ancillary_variables``.
-    history : str, optional
-        History line or command (see :func:`history_line`), appended to the input's history.
-
-    Returns
-    -------
-    xarray.Dataset
-        Dimensions ``profile`` and ``obs``; encodings set for :meth:`xarray.Dataset.to_netcdf`.
-        Flag variables hold raw codes with ``-128`` where a level carries no flag.
-    """
-    import xarray as xr
-
+    added: Mapping[str, AddedColumn] | None,
+    history: str | None,
+) -> tuple[dict[str, _Spec], dict[str, Any]]:
+    """Variables (in writing order) and global attributes of the output file."""
     sch = get_scheme(batch.scheme)
     prof = batch.profiles
     P, OB = PROFILE_DIM, OBS_DIM
-    variables: dict[str, xr.Variable] = {}  # the Dataset is built once, at the end
+    variables: dict[str, _Spec] = {}
     taken: set[str] = set()
 
     def put(name: str, dims: tuple[str, ...], data: Any, attrs: dict[str, Any],
             encoding: dict[str, Any] | None = None) -> None:
         if getattr(data, "dtype", None) is not None and data.dtype.kind == "S":
             attrs = {**attrs, "_Encoding": "utf-8"}  # text as a UTF-8 char array
-        variables[name] = xr.Variable(dims, data, attrs, encoding=dict(encoding or {}))
+        variables[name] = (dims, data, attrs, dict(encoding or {}))
         taken.add(name)
 
     put("profile_id", (P,), prof["profile_id"].astype(str).to_numpy(dtype=object),
@@ -983,7 +1070,7 @@ def to_dataset(
             ancillary[col.parent].append(nc)
     for v, names in ancillary.items():
         if names:
-            variables[v].attrs["ancillary_variables"] = " ".join(names)
+            variables[v][2]["ancillary_variables"] = " ".join(names)
     line = history_line(history)
     g = dict(batch.attrs.get("global_attrs", {}))
     old = batch.attrs.get("history") or g.get("history")
@@ -993,7 +1080,65 @@ def to_dataset(
     g["Conventions"] = "CF-1.13 ACDD-1.3"
     g["date_created"] = line[:20] if _TS.match(line) else line
     g["qcflag_flag_scheme"] = sch.name
-    return xr.Dataset(variables, attrs={k: g[k] for k in sorted(g)})
+    return variables, {k: g[k] for k in sorted(g)}
+
+
+def _factorize_text(flat: NDArray[Any]) -> tuple[NDArray[np.intp], list[Any]]:
+    """``pd.factorize(flat)`` (codes, distinct values) with the empty string set apart first.
+
+    Per-level text (flag reasons, carried-over comments) is mostly empty; comparing with
+    ``""`` in one vectorised pass and hashing only the rest is several times faster.
+    """
+    try:
+        empty = np.asarray(flat == "", dtype=bool)
+    except (TypeError, ValueError):  # values whose comparison is not a plain bool
+        empty = None
+    if empty is None or empty.shape != flat.shape or not empty.any():
+        codes, uniq = pd.factorize(flat, use_na_sentinel=False)
+        return codes, list(uniq)
+    codes = np.zeros(flat.size, dtype=np.intp)
+    rest = np.flatnonzero(~empty)
+    uniq: list[Any] = [""]
+    if rest.size:
+        sub, found = pd.factorize(flat[rest], use_na_sentinel=False)
+        codes[rest] = sub + 1
+        uniq += list(found)
+    return codes, uniq
+
+
+def to_dataset(
+    batch: ProfileBatch,
+    *,
+    added: Mapping[str, AddedColumn] | None = None,
+    history: str | None = None,
+) -> xr.Dataset:
+    """Return the batch as a CF-1.13 contiguous ragged profile dataset.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    added : mapping of str to AddedColumn, optional
+        Per-level variables to add (e.g. automatic flags), listed in their parent's
+        ``ancillary_variables``.
+    history : str, optional
+        History line or command (see :func:`history_line`), appended to the input's history.
+
+    Returns
+    -------
+    xarray.Dataset
+        Dimensions ``profile`` and ``obs``; encodings set for :meth:`xarray.Dataset.to_netcdf`.
+        Flag variables hold raw codes with ``-128`` where a level carries no flag.
+    """
+    specs, attrs = _output_variables(batch, added, history)
+    return _dataset(specs, attrs)
+
+
+def _dataset(specs: Mapping[str, _Spec], attrs: dict[str, Any]) -> xr.Dataset:
+    import xarray as xr
+
+    return xr.Dataset({name: xr.Variable(dims, data, dict(a), encoding=dict(enc))
+                       for name, (dims, data, a, enc) in specs.items()}, attrs=attrs)
 
 
 def write_netcdf(
@@ -1029,7 +1174,128 @@ def write_netcdf(
     OutputExistsError
         If `path` exists and `overwrite` is false.
     """
-    ds = to_dataset(batch, added=added, history=history)
+    specs, attrs = _output_variables(batch, added, history)
+    plan = _direct_plan(specs)
     with atomic_output(path, overwrite=overwrite) as tmp:
-        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4")
+        if plan is None:
+            _dataset(specs, attrs).to_netcdf(tmp, engine="netcdf4", format="NETCDF4")
+        else:
+            _write_direct(tmp, plan, attrs)
     return Path(path)
+
+
+# The direct writer issues the netCDF4 calls that ``xarray.Dataset.to_netcdf(engine=
+# "netcdf4", format="NETCDF4")`` issues for the variables qcflag writes (xarray 2024-2026:
+# global attributes in order; dimensions in order of first use; per variable createVariable
+# with xarray's default arguments, setncatts, then one write of the whole array), so the
+# files are byte-identical (tests/test_io_netcdf.py compares the two on every kind of column)
+# without xarray's per-variable encoding, locking and file-manager round trips (~3 ms per
+# variable). Anything else (another dtype, an encoding it does not know, a variable named
+# like a dimension) goes through xarray.
+_CreateArgs = tuple[str, Any, tuple[str, ...], Any, dict[str, Any], Any]
+_KNOWN_ENCODING = frozenset({"_FillValue"})
+
+
+def _direct_variable(name: str, spec: _Spec) -> _CreateArgs | None:
+    """Encode one variable as xarray's CF and netCDF4 encoders would; None if unsure."""
+    dims, data, attrs, encoding = spec
+    if not isinstance(data, np.ndarray) or data.ndim != len(dims) or data.size == 0:
+        return None
+    if set(encoding) - _KNOWN_ENCODING or "_FillValue" in attrs:
+        return None
+    kind = data.dtype.kind
+    fill = None
+    if kind == "f" and "_FillValue" not in encoding:
+        return None  # xarray gives floats a default _FillValue: leave that to it
+    if "_FillValue" in encoding:
+        if kind not in "fiu":
+            return None
+        fv = encoding["_FillValue"]
+        fill = np.asarray(fv).astype(data.dtype)[()]
+        if kind == "f":
+            if not np.isnan(fill):  # xarray would replace NaN with the fill: leave it that
+                return None
+        elif fill != fv:
+            return None
+    if kind == "O":
+        if data.ndim != 1 or not all(type(x) is str for x in data.tolist()):
+            return None
+        return name, str, dims, data, dict(attrs), None
+    if kind == "S":
+        width = data.dtype.itemsize
+        chars = data.reshape((*data.shape, 1)).view("S1")  # xarray's bytes_to_char
+        return name, chars.dtype, (*dims, f"string{width}"), chars, dict(attrs), None
+    if kind in "fiu" and data.dtype.byteorder in "=|" and data.dtype.itemsize <= 8:
+        return name, data.dtype, dims, data, dict(attrs), fill
+    return None
+
+
+def _time_variable(name: str, spec: _Spec) -> _CreateArgs | None:
+    """Encode a datetime64 variable with CF units as xarray does (exact integer times)."""
+    dims, data, attrs, encoding = spec
+    if set(encoding) != {"units", "calendar", "dtype", "_FillValue"} or "units" in attrs:
+        return None
+    m = re.fullmatch(r"(seconds|milliseconds|microseconds|nanoseconds) since "
+                     r"1970-01-01 00:00:00", str(encoding["units"]))
+    if (m is None or encoding["calendar"] != "standard" or np.dtype(encoding["dtype"])
+            != np.int64 or not isinstance(data, np.ndarray) or data.ndim != 1
+            or data.size == 0 or data.dtype != np.dtype("datetime64[ns]")):
+        return None
+    fill = np.asarray(encoding["_FillValue"]).astype(np.int64)[()]
+    step = {"seconds": 10**9, "milliseconds": 10**6, "microseconds": 10**3,
+            "nanoseconds": 1}[m.group(1)]
+    ns = data.view(np.int64)
+    nat = np.isnat(data)
+    if (ns[~nat] % step).any():
+        return None
+    values = np.where(nat, fill, ns // step)
+    out = {**attrs, "units": f"{m.group(1)} since 1970-01-01", "calendar": "standard"}
+    return name, np.dtype(np.int64), dims, values, out, fill
+
+
+def _direct_plan(specs: Mapping[str, _Spec]) -> tuple[dict[str, int], list[_CreateArgs]] | None:
+    """Dimensions and createVariable arguments for the direct writer, or None."""
+    plan: list[_CreateArgs] = []
+    dims: dict[str, int] = {}
+    for name, spec in specs.items():
+        data = spec[1]
+        kind = getattr(getattr(data, "dtype", None), "kind", "")
+        args = _time_variable(name, spec) if kind == "M" else _direct_variable(name, spec)
+        if args is None:
+            return None
+        for d, n in zip(args[2], args[3].shape, strict=True):
+            if dims.setdefault(d, n) != n:
+                return None
+        plan.append(args)
+    if set(dims) & set(specs) or any("/" in n for n in [*dims, *specs]):
+        return None  # dimension coordinates and odd names: leave them to xarray
+    return dims, plan
+
+
+def _write_direct(path: Path, plan: tuple[dict[str, int], list[_CreateArgs]],
+                  attrs: Mapping[str, Any]) -> None:
+    import netCDF4
+
+    dims, variables = plan
+    ds = netCDF4.Dataset(os.fspath(path), mode="w", clobber=True, diskless=False,
+                         persist=False, format="NETCDF4")
+    try:
+        for k, v in attrs.items():
+            if np.asarray(v).dtype.kind in "US" and np.asarray(v).size > 1:
+                ds.setncattr_string(k, v)
+            else:
+                ds.setncattr(k, v)
+        for d, n in dims.items():
+            ds.createDimension(d, size=n)
+        for name, datatype, vdims, data, vattrs, fill in variables:
+            var = ds.createVariable(
+                varname=name, datatype=datatype, dimensions=vdims, zlib=False,
+                complevel=4, shuffle=True, fletcher32=False, contiguous=False,
+                chunksizes=None, endian="native", least_significant_digit=None,
+                fill_value=fill)
+            var.setncatts(vattrs)
+            var.set_auto_maskandscale(False)
+            var.set_auto_chartostring(False)
+            var[...] = data
+    finally:
+        ds.close()
