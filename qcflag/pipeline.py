@@ -480,10 +480,13 @@ def flag_files(
         report = progress
     else:
         report = None
+    from qcflag.rules import load_rules
+
     history = _history_line(command)
     summary = FlagSummary(rules_only=model is None)
     for src, dst in zip(paths, targets, strict=True):
         batch = read_files([src], scheme=None)
+        rules = load_rules(rules)  # parsed once, for the first file, kept for the rest
         result = flag_batch(batch, model=model, rules=rules, caution=caution,
                             target_recall=target_recall, review_budget=review_budget,
                             scheme=scheme)

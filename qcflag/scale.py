@@ -272,6 +272,39 @@ def _resolve_model(model: Any) -> Any:
     return _MODEL_CACHE[key]
 
 
+_RULES_CACHE: dict[tuple[Any, ...], Any] = {}
+
+
+def _resolve_rules(rules: Any) -> Any:
+    """Parse a rule set named or given as a path once per process (tasks keep it).
+
+    Parsing and validating the standard set costs ~10 ms, as much as flagging a few
+    thousand levels; a worker flagging many small files would pay it for every file. The
+    cache is keyed on the built-in name, or the file's path, modification time and size,
+    and on the registered checks (a plug-in registered later gives a new parse).
+    """
+    from qcflag.checks.registry import available_checks
+    from qcflag.rules import BUILTIN_RULE_SETS, RuleSet, load_rules
+
+    if isinstance(rules, RuleSet):
+        return rules
+    name = "standard" if rules is None else rules
+    if isinstance(name, str) and name in BUILTIN_RULE_SETS:
+        source: tuple[Any, ...] = ("built-in", name)
+    else:
+        try:
+            p = Path(name)
+            st = p.stat()
+        except (OSError, TypeError, ValueError):
+            return load_rules(rules)  # it raises the proper error
+        source = (str(p.resolve()), st.st_mtime_ns, st.st_size)
+    key = (source, tuple((n, id(spec)) for n, spec in available_checks().items()))
+    if key not in _RULES_CACHE:
+        _RULES_CACHE.clear()
+        _RULES_CACHE[key] = load_rules(rules)
+    return _RULES_CACHE[key]
+
+
 def flag_one_file(
     path: str | os.PathLike[str],
     out_path: str | os.PathLike[str],
@@ -321,6 +354,7 @@ def flag_one_file(
     grade_counts: dict[str, dict[str, int]] = {}
     with _local_file_locks():
         for _, batch in iter_batches([path]):
+            options["rules"] = _resolve_rules(options.get("rules"))
             added, grade_counts = flag_batch_chunked(
                 batch, chunk_levels=chunk_levels, model=model, probabilities=probabilities,
                 **options,

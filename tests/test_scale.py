@@ -124,3 +124,23 @@ def test_cli_workers_and_bad_scheduler(archive, tmp_path, monkeypatch):
     res = runner.invoke(app, ["flag", str(archive[0]), "-o", str(tmp_path / "y.nc"),
                               "--workers", "0"])
     assert res.exit_code == 2
+
+
+def test_rule_set_parsed_once_per_process(tmp_path):
+    """Tasks reuse the parsed rule set; an edited rule file is parsed again."""
+    from qcflag import scale
+    from qcflag.rules import load_rules
+
+    std = scale._resolve_rules(None)
+    assert scale._resolve_rules(None) is std and scale._resolve_rules("standard") is std
+    assert std.checks == load_rules(None).checks
+    src = load_rules("coastal")
+    f = tmp_path / "mine.toml"
+    f.write_text(src.text)
+    first = scale._resolve_rules(str(f))
+    assert scale._resolve_rules(f) is first and first.checks == src.checks
+    f.write_text(src.text + "\n# edited\n")  # new size: parsed again
+    assert scale._resolve_rules(f) is not first
+    assert scale._resolve_rules(first) is first  # a RuleSet passes through
+    with pytest.raises(QCFlagError):
+        scale._resolve_rules(tmp_path / "missing.toml")
