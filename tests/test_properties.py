@@ -54,18 +54,42 @@ def test_valid_batches_check_without_error(batch, rules):
         assert set(np.unique(verdict).tolist()) <= {0, 1, 3, 4}
 
 
+TRACK_CHECKS = {"impossible_speed"}
+"""Checks that compare a profile with the other fixes of its track (same cruise)."""
+
+
+def _assert_same_slice(whole, part, rows, skip=()):
+    for key, res in part.results.items():
+        if key[0] in skip:
+            continue
+        np.testing.assert_array_equal(whole.results[key].grade[rows], res.grade, str(key))
+        np.testing.assert_array_equal(whole.results[key].statistic[rows], res.statistic,
+                                      str(key))
+
+
 @FAST
 @given(batch=valid_batches(max_profiles=3, max_levels=6))
 def test_batch_result_equals_profile_by_profile(batch):
-    # vectorised over the ragged batch = each profile on its own (boundaries are masked)
+    # vectorised over the ragged batch = each profile on its own (boundaries are masked),
+    # for every check that looks at one profile
     whole = run_checks(batch)
     for i in range(batch.n_profiles):
         one = run_checks(batch.select([i]))
-        sl = slice(batch.offsets[i], batch.offsets[i + 1])
-        for key, res in one.results.items():
-            np.testing.assert_array_equal(whole.results[key].grade[sl], res.grade, str(key))
-            np.testing.assert_array_equal(whole.results[key].statistic[sl], res.statistic,
-                                          str(key))
+        sl = np.arange(batch.offsets[i], batch.offsets[i + 1])
+        _assert_same_slice(whole, one, sl, skip=TRACK_CHECKS)
+
+
+@FAST
+@given(batch=valid_batches(max_profiles=4, max_levels=6))
+def test_batch_result_equals_cruise_by_cruise(batch):
+    # every check, track checks included: each cruise on its own gives the same results
+    whole = run_checks(batch)
+    cruise = batch.profiles["cruise"].astype(str).to_numpy()
+    for c in dict.fromkeys(cruise):
+        idx = np.flatnonzero(cruise == c)
+        part = run_checks(batch.select(idx))
+        rows = np.concatenate([np.arange(batch.offsets[i], batch.offsets[i + 1]) for i in idx])
+        _assert_same_slice(whole, part, rows)
 
 
 @FAST

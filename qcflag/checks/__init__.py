@@ -22,6 +22,7 @@ from qcflag.checks.rollover import digit_rollover
 from qcflag.checks.shape import near_bottom, near_surface, robust_z, second_difference
 from qcflag.checks.spike import gradient, spike
 from qcflag.checks.stuck import flat_line, stuck_value
+from qcflag.checks.track import impossible_speed
 
 __all__ = [
     "CHECKS",
@@ -35,6 +36,7 @@ __all__ = [
     "get_check",
     "global_range",
     "gradient",
+    "impossible_speed",
     "near_bottom",
     "near_surface",
     "pressure_increasing",

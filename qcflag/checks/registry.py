@@ -24,7 +24,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from qcflag.checks import density, pressure, ranges, rollover, shape, spike, stuck
+from qcflag.checks import density, pressure, ranges, rollover, shape, spike, stuck, track
 from qcflag.checks.base import CheckResult
 
 __all__ = [
@@ -119,6 +119,10 @@ _LIMITS = {"shallow_limit": "float+", "deep_limit": "float+", "breakpoint": "flo
 CHECKS: dict[str, CheckSpec] = {
     s.name: s
     for s in (
+        CheckSpec("impossible_speed", track.impossible_speed, _TS, judges=_TS,
+                  params={"float_max_speed": "float+", "ship_max_speed": "float+",
+                          "level_grade": "int+"},
+                  description="fix needing an impossible speed on its track (Argo test 5)"),
         CheckSpec("global_range", ranges.global_range, _VARIABLES,
                   params={"minimum": "float", "maximum": "float",
                           "suspect_at_or_below": "float", "also_flag": "variables"},
