@@ -271,14 +271,39 @@ class ProfileBatch:
             return self.select(np.arange(self.n_profiles)[key])
         return self.select(key)
 
-    def iter_chunks(self, max_levels: int) -> Iterable[ProfileBatch]:
-        """Yield consecutive sub-batches of whole profiles with about `max_levels` levels each."""
+    def iter_chunks(self, max_levels: int, *, keep_cruises: bool = True
+                    ) -> Iterable[ProfileBatch]:
+        """Yield consecutive sub-batches of whole profiles with about `max_levels` levels each.
+
+        Parameters
+        ----------
+        max_levels : int
+            Wanted levels per chunk; a chunk closes at the first allowed profile boundary at
+            or after each multiple of `max_levels`.
+        keep_cruises : bool, default=True
+            Never split a cruise between chunks: checks and features that compare a profile
+            with the rest of its cruise (its track, the cruise's other casts) then see the
+            same neighbours in a chunk as in the whole batch. A chunk may exceed
+            `max_levels` to hold a whole cruise (and holds everything between two profiles
+            of a cruise that the file interleaves with others).
+        """
         if self.n_profiles == 0:
             return
-        bounds = np.searchsorted(self.offsets, np.arange(0, self.n_levels, max_levels),
-                                 side="right") - 1
-        starts = np.unique(np.concatenate([bounds, [0]]))
-        ends = np.append(starts[1:], self.n_profiles)
+        n = self.n_profiles
+        allowed = np.arange(1, n + 1)  # chunk ends allowed after profile k - 1
+        if keep_cruises and "cruise" in self.profiles.columns:
+            codes, _ = pd.factorize(self.profiles["cruise"].astype("string"),
+                                    use_na_sentinel=True)
+            codes = np.where(codes < 0, codes.max(initial=-1) + 1 + np.arange(n), codes)
+            last = np.zeros(int(codes.max()) + 1, dtype=np.int64)
+            np.maximum.at(last, codes, np.arange(n))
+            reach = np.maximum.accumulate(last[codes])  # last profile any open cruise needs
+            allowed = np.flatnonzero(reach == np.arange(n)) + 1
+        ends_at = self.offsets[allowed]  # level offset of each allowed end
+        targets = np.arange(max_levels, self.n_levels, max_levels)
+        ends = np.unique(np.append(allowed[np.minimum(
+            np.searchsorted(ends_at, targets, side="left"), allowed.size - 1)], n))
+        starts = np.concatenate([[0], ends[:-1]])
         for a, b in zip(starts, ends, strict=True):
             if b > a:
                 yield self.select(np.arange(a, b))

@@ -50,6 +50,33 @@ def test_iter_chunks_covers_every_profile_once():
     assert ProfileBatch.concat(chunks).pressure.tolist() == b.pressure.tolist()
 
 
+def _many(cruises):
+    n = len(cruises)
+    return ProfileBatch(
+        offsets=np.arange(0, 3 * n + 1, 3, dtype=np.int64), pressure=np.tile([1.0, 2.0, 3.0], n),
+        temperature=np.full(3 * n, 10.0), salinity=np.full(3 * n, 35.0),
+        profiles=pd.DataFrame({"profile_id": [f"p{i}" for i in range(n)], "cruise": cruises,
+                               "time": pd.Timestamp("2020-01-01"), "latitude": 0.0,
+                               "longitude": 0.0, "platform": "x"}))
+
+
+@pytest.mark.parametrize("max_levels", [1, 3, 4, 7, 100])
+def test_iter_chunks_keeps_cruises_whole(max_levels):
+    cruises = ["A", "A", "A", "B", "C", "B", "D", None, None, "E", "E"]  # B interleaves C
+    b = _many(cruises)
+    chunks = list(b.iter_chunks(max_levels))
+    assert ProfileBatch.concat(chunks).profiles["profile_id"].tolist() == \
+        b.profiles["profile_id"].tolist()
+    seen: dict[str, int] = {}
+    for k, c in enumerate(chunks):
+        for cr in c.profiles["cruise"].dropna():
+            assert seen.setdefault(cr, k) == k, f"cruise {cr} split (max_levels={max_levels})"
+    if max_levels == 1:  # every allowed boundary is used: A | B C B | D | - | - | E
+        assert [c.n_profiles for c in chunks] == [3, 3, 1, 1, 1, 2]
+    plain = list(b.iter_chunks(max_levels, keep_cruises=False))
+    assert all(c.n_levels <= max(max_levels, 3) + 2 for c in plain)  # about max_levels
+
+
 def test_validation_errors():
     t = _table()
     b = ProfileBatch.from_levels(t)
