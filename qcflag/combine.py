@@ -69,13 +69,16 @@ __all__ = [
 GRADES = np.array([1, 2, 3, 4], dtype=np.int8)
 
 FORCING: frozenset[str] = frozenset(
-    {"global_range", "pressure_increasing", "position", "date", "on_land", "stuck_value"}
+    {"global_range", "pressure_increasing", "position", "date", "on_land", "impossible_speed",
+     "stuck_value"}
 )
 """Checks whose verdict forces the flag: they detect values that cannot be physical.
 
 ``global_range`` (Argo test 6), ``pressure_increasing`` (test 8), ``date`` (test 2),
-``position`` (test 3), ``on_land`` (test 4) and ``stuck_value`` (test 13, the whole profile
-identical) give grade 4 in the Argo real-time manual (ARGO-QC section 2.1.2, via
+``position`` (test 3), ``on_land`` (test 4), ``impossible_speed`` (test 5, a fix no ship or
+float could reach; its temperature and salinity take grade 3 by default, the position itself
+4 in Argo) and ``stuck_value`` (test 13, the whole profile identical) give grade 4 in the Argo
+real-time manual (ARGO-QC section 2.1.2, via
 ../shared/reference/qc-standards.md section 1.3) and describe values no ocean can produce.
 Spike, gradient, digit rollover, density inversion, climatology, regional range, flat line
 and below-sea-floor are *not* forcing: each can fire on real water (fronts, sharp
@@ -142,8 +145,12 @@ class FusionParams:
         Isotonic map of the fused ``P(grade >= 3)`` (breakpoints; empty = identity).
     bad_quantiles : list of float
         Quantiles 0, 0.001, ..., 1 of calibrated ``P(grade >= 3)`` over out-of-fold levels
-        that are truly probably bad or bad: the threshold reaching recall ``r`` is the
-        ``1 - r`` quantile.
+        that are truly probably bad or bad, estimated from the manually flagged ones with the
+        operators' false flags removed in distribution (:func:`_denoised_bad_quantiles`):
+        the threshold reaching recall ``r`` is the ``1 - r`` quantile.
+    manual_bad_noise : float
+        Estimated share of the manually flagged (>= 3) out-of-fold levels that look like
+        good ones (operators' false flags); 0 where not estimated.
     all_quantiles : list of float
         The same quantiles over all out-of-fold levels (for a review budget).
     n_levels : int
@@ -159,6 +166,7 @@ class FusionParams:
     bad_quantiles: list[float] = field(default_factory=list)
     all_quantiles: list[float] = field(default_factory=list)
     n_levels: int = 0
+    manual_bad_noise: float = 0.0
 
     def to_dict(self) -> dict[str, Any]:
         """Plain-JSON form (lists and floats only)."""
@@ -436,9 +444,50 @@ def fit_fusion(
         p_bad = _calibrate(fused, fusion)[:, 2:].sum(axis=1)
     qs = np.linspace(0, 1, 1001)
     if y_bad.any():
-        fusion.bad_quantiles = [float(v) for v in np.quantile(p_bad[y_bad], qs)]
+        fusion.manual_bad_noise, fusion.bad_quantiles = _denoised_bad_quantiles(
+            p_bad[y_bad], p_bad[~y_bad], qs)
     fusion.all_quantiles = [float(v) for v in np.quantile(p_bad, qs)]
     return fusion
+
+
+def _denoised_bad_quantiles(
+    p_bad_flagged: NDArray[np.float64], p_bad_passed: NDArray[np.float64],
+    qs: NDArray[np.float64],
+) -> tuple[float, list[float]]:
+    """Quantiles of ``P(grade >= 3)`` over the truly probably-bad-or-bad levels, estimated.
+
+    Manually flagged levels (grade >= 3) include an operator's false flags, which look like
+    good levels; a target recall taken from their raw quantiles would chase them down into
+    the good levels. The flagged levels' distribution is modelled as the mixture
+    ``F_flagged = (1 - eps) F_bad + eps F_good``, with ``F_good`` the distribution over the
+    manually passed levels, and ``eps`` estimated as the largest share compatible with it,
+    ``min_t F_flagged(t) / F_good(t)`` over ``t`` in the upper half of ``F_good``
+    (mixture proportion estimation; Blanchard, Lee & Scott 2010; Scott 2015). Then
+    ``F_bad = (F_flagged - eps F_good) / (1 - eps)``, made a distribution (clipped to
+    [0, 1], non-decreasing), is inverted at `qs`.
+
+    Returns
+    -------
+    eps : float
+        Estimated share of manually flagged levels that look like good ones.
+    quantiles : list of float
+        Quantiles of the estimated ``F_bad`` at `qs`.
+    """
+    flagged = np.sort(p_bad_flagged)
+    if p_bad_passed.size == 0:
+        return 0.0, [float(v) for v in np.quantile(flagged, qs)]
+    passed = np.sort(p_bad_passed)
+    grid = np.unique(np.concatenate([flagged, np.quantile(passed, np.linspace(0, 1, 2001))]))
+    f_flag = np.searchsorted(flagged, grid, side="right") / flagged.size
+    f_pass = np.searchsorted(passed, grid, side="right") / passed.size
+    upper = f_pass >= 0.5
+    eps = float(np.clip(np.min(f_flag[upper] / f_pass[upper]), 0.0, 0.99))
+    f_bad = np.clip((f_flag - eps * f_pass) / (1.0 - eps), 0.0, 1.0)
+    f_bad = np.maximum.accumulate(f_bad)
+    f_bad[-1] = 1.0
+    # quantile q: the smallest grid value whose estimated CDF reaches q
+    pos = np.minimum(np.searchsorted(f_bad, qs, side="left"), grid.size - 1)
+    return eps, [float(v) for v in grid[pos]]
 
 
 def _subset_table(checks: CheckTable, idx: NDArray[np.int64]) -> CheckTable:

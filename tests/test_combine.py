@@ -285,3 +285,27 @@ def test_forced_levels_are_left_out_of_the_fusion_fit():
     assert with_block.n_levels == without.n_levels == n - 500
     assert with_block.model_weight == pytest.approx(without.model_weight, rel=1e-6)
     assert with_block.model_weight > 0.3
+
+
+def test_target_recall_quantiles_discount_the_operators_false_flags():
+    # generated scenario: truly bad levels score high, truly good ones low; 12 % of the
+    # manually flagged levels are an operator's false flags drawn from the good levels
+    from qcflag.combine import _denoised_bad_quantiles
+
+    rng = np.random.default_rng(5)
+    good = rng.beta(1.0, 60.0, 200_000)
+    bad = rng.beta(12.0, 2.0, 4_000)
+    false_flags = rng.beta(1.0, 60.0, 545)  # 545 / (4000 + 545) = 12 %
+    flagged = np.concatenate([bad, false_flags])
+    qs = np.linspace(0, 1, 1001)
+    eps, q = _denoised_bad_quantiles(flagged, good, qs)
+    assert eps == pytest.approx(0.12, abs=0.02)
+    t = float(np.interp(0.05, qs, q))  # threshold for a 95 % recall
+    assert (bad >= t).mean() == pytest.approx(0.95, abs=0.015)
+    assert (good >= t).mean() < 0.001
+    raw = np.quantile(flagged, 0.05)  # the plain quantile reaches into the good levels
+    assert (bad >= raw).mean() > 0.999 and (good >= raw).mean() > 0.3
+    # clean labels: nothing to discount, the plain quantiles come back
+    eps0, q0 = _denoised_bad_quantiles(bad, good, qs)
+    assert eps0 < 0.01
+    assert float(np.interp(0.05, qs, q0)) == pytest.approx(np.quantile(bad, 0.05), abs=0.01)
