@@ -144,3 +144,16 @@ def test_rule_set_parsed_once_per_process(tmp_path):
     assert scale._resolve_rules(first) is first  # a RuleSet passes through
     with pytest.raises(QCFlagError):
         scale._resolve_rules(tmp_path / "missing.toml")
+
+
+def test_local_cluster_workers_keep_default_malloc_trimming():
+    """Workers started for flagging do not inherit dask's 64 KiB malloc trim threshold."""
+    import os
+
+    from distributed import Client
+
+    from qcflag.scale import local_cluster
+
+    with local_cluster(1) as cluster, Client(cluster) as client:
+        env = client.run(lambda: os.environ.get("MALLOC_TRIM_THRESHOLD_"))
+    assert list(env.values()) == [None]
