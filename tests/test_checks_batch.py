@@ -17,7 +17,17 @@ from hypothesis import strategies as st
 
 from qcflag import ProfileBatch
 from qcflag.checks import robust_z, second_difference
-from qcflag.checks._ragged import moving_median_mad, next_valid_index, prev_valid_index
+from qcflag.checks._ragged import (
+    gather,
+    moving_median_mad,
+    next_valid_index,
+    next_values,
+    prev_valid_index,
+    prev_values,
+    profile_levels,
+    profile_reduce,
+    sorting_network,
+)
 from qcflag.rules import RuleSet, load_rules, run_checks
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
@@ -87,10 +97,12 @@ def test_loop_equivalence_on_coastal_rules():
     _assert_tables_equal(run_checks(batch, rs), run_checks_loop(batch, rs))
 
 
-def test_prev_next_valid_index_against_definition():
+@pytest.mark.parametrize("share", [0.0, 0.3, 0.6, 0.95, 1.0])
+def test_prev_next_valid_index_against_definition(share):
+    # runs of invalid levels at profile tops and bottoms, empty profiles, all or none valid
     rng = np.random.default_rng(1)
     batch = next(iter([_random_batch(rng)]))
-    valid = rng.random(batch.n_levels) < 0.6
+    valid = rng.random(batch.n_levels) < share
     prev, nxt = prev_valid_index(batch, valid), next_valid_index(batch, valid)
     for i in range(batch.n_levels):  # definition, written naively
         lo, hi = batch.offsets[batch.profile_index[i]], batch.offsets[batch.profile_index[i] + 1]
@@ -98,6 +110,39 @@ def test_prev_next_valid_index_against_definition():
         after = [j for j in range(i + 1, hi) if valid[j]]
         assert prev[i] == (before[-1] if before else -1)
         assert nxt[i] == (after[0] if after else -1)
+    v = batch.temperature
+    assert np.array_equal(prev_values(batch, v, valid), gather(v, prev), equal_nan=True)
+    assert np.array_equal(next_values(batch, v, valid), gather(v, nxt), equal_nan=True)
+
+
+def test_profile_levels_and_reductions_against_definition():
+    rng = np.random.default_rng(3)
+    batch = _random_batch(rng)
+    chosen = np.array([5, 0, 11, 3])
+    expect = [j for k in chosen for j in range(batch.offsets[k], batch.offsets[k + 1])]
+    assert profile_levels(batch, chosen).tolist() == expect
+    v = batch.temperature
+    valid = rng.random(v.size) < 0.7
+    lo, hi, count = profile_reduce(batch, v, valid, ("min", "max", "count"))
+    for k in range(batch.n_profiles):
+        vals = [v[j] for j in range(batch.offsets[k], batch.offsets[k + 1]) if valid[j]]
+        assert count[k] == len(vals)
+        if vals:
+            assert (lo[k], hi[k]) == (min(vals), max(vals))
+        else:
+            assert np.isnan(lo[k]) and np.isnan(hi[k])
+    assert np.array_equal(profile_reduce(batch, v, valid, "max"), hi, equal_nan=True)
+
+
+@pytest.mark.parametrize("wires", range(2, 17))
+def test_sorting_networks_sort_every_zero_one_input(wires):
+    # 0-1 principle (Knuth, TAOCP vol. 3, 5.3.4, theorem Z): a comparator network that
+    # sorts all 2**n inputs of zeros and ones sorts every input
+    x = (np.arange(2 ** wires)[None, :] >> np.arange(wires)[:, None]) & 1
+    for i, j in sorting_network(wires):
+        assert i < j
+        x[i], x[j] = np.minimum(x[i], x[j]), np.maximum(x[i], x[j])
+    assert (np.diff(x, axis=0) >= 0).all()
 
 
 def _random_batch(rng):
@@ -171,6 +216,32 @@ def test_shape_statistics_react_to_a_spike():
     assert np.nanargmax(np.abs(z)) == 40 and z[40] > 5
     assert np.nanargmin(d2) == 40 and d2[40] == t[39] - 2 * t[40] + t[41]
     assert (robust_z(b, variable="temperature").grade == 0).all()
+
+
+def test_vectorised_equals_plain_loop_on_a_faulty_batch():
+    # many gaps, excluded levels, repeated values, reversals and unlocated profiles, so the
+    # sparse corrections of the neighbour and run helpers are exercised at scale
+    from _synthetic import synthetic_batch
+
+    b = synthetic_batch(12_000, min_levels=1, max_levels=60, seed=3)
+    rng = np.random.default_rng(5)
+    p, t, s = b.pressure.copy(), b.temperature.copy(), b.salinity.copy()
+    n = p.size
+    for arr, share in ((p, 0.02), (t, 0.05), (s, 0.05)):
+        arr[rng.random(n) < share] = np.nan
+    hit = rng.random(n) < 0.02
+    t[hit] += rng.normal(0, 8, hit.sum())
+    hit = rng.random(n) < 0.01
+    p[hit] -= rng.uniform(0, 100, hit.sum())
+    for start in rng.choice(n - 30, size=40, replace=False):
+        t[start:start + rng.integers(2, 30)] = t[start]
+    t[rng.random(n) < 0.005] = 50.0
+    prof = b.profiles.copy()
+    prof.loc[prof.index[::37], "latitude"] = np.nan
+    faulty = ProfileBatch(offsets=b.offsets, pressure=p, temperature=t, salinity=s,
+                          profiles=prof)
+    with np.errstate(invalid="ignore"):
+        _assert_tables_equal(run_checks(faulty, OWN), run_checks_loop(faulty, OWN))
 
 
 def test_rule_set_round_trip_through_text(tmp_path):

@@ -8,7 +8,6 @@ boundaries, "previous valid level" is an index forward-fill with
 
 from __future__ import annotations
 
-import hashlib
 import weakref
 from typing import TYPE_CHECKING, Any
 
@@ -25,12 +24,18 @@ __all__ = [
     "broadcast_profiles",
     "exceedance",
     "gather",
+    "grade_levels",
     "inside_polygon",
     "moving_median_mad",
     "next_valid_index",
+    "next_values",
     "prev_valid_index",
+    "prev_values",
+    "profile_levels",
     "profile_reduce",
     "run_lengths",
+    "shallower_than",
+    "sorting_network",
     "usable",
 ]
 
@@ -71,21 +76,16 @@ def prev_valid_index(batch: ProfileBatch, valid: NDArray[np.bool_]) -> NDArray[n
     ndarray of int64, shape (n_levels,)
         ``j < i`` with ``valid[j]`` and ``j`` in the profile of ``i``, the largest such; -1
         where there is none.
+
+    Notes
+    -----
+    The answer is ``i - 1`` except at the first level of a profile and just below an invalid
+    level; only those few levels are worked out (:func:`_prev_fixes`).
     """
-    key = ("prev", _digest(valid))
-    memo = _memo(batch)
-    if key not in memo:
-        n = valid.size
-        idx = np.where(valid, np.arange(n, dtype=np.int64), -1)
-        filled = np.maximum.accumulate(idx) if n else idx
-        prev = np.empty(n, dtype=np.int64)
-        if n:
-            prev[0] = -1
-            prev[1:] = filled[:-1]
-        prev[prev < _bounds(batch)[0]] = -1
-        prev.setflags(write=False)
-        memo[key] = prev
-    return memo[key]
+    out = _shifted_index(batch, valid.size, before=True).copy()
+    at, src = _prev_fixes(batch, valid)
+    out[at] = src
+    return out
 
 
 def next_valid_index(batch: ProfileBatch, valid: NDArray[np.bool_]) -> NDArray[np.int64]:
@@ -103,25 +103,140 @@ def next_valid_index(batch: ProfileBatch, valid: NDArray[np.bool_]) -> NDArray[n
     ndarray of int64, shape (n_levels,)
         Smallest ``j > i`` with ``valid[j]`` in the profile of ``i``; -1 where there is none.
     """
-    key = ("next", _digest(valid))
+    out = _shifted_index(batch, valid.size, before=False).copy()
+    at, src = _next_fixes(batch, valid)
+    out[at] = src
+    return out
+
+
+def prev_values(batch: ProfileBatch, values: NDArray[np.float64], valid: NDArray[np.bool_]
+                ) -> NDArray[np.float64]:
+    """Value of the nearest valid level above each level in its profile, NaN if none.
+
+    The same as ``gather(values, prev_valid_index(batch, valid))`` but without building the
+    index: the values shifted down by one level, corrected at profile tops and below
+    invalid levels.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    values : ndarray of float64, shape (n_levels,)
+        Level values.
+    valid : ndarray of bool, shape (n_levels,)
+        Which levels may serve as neighbours.
+
+    Returns
+    -------
+    ndarray of float64, shape (n_levels,)
+        A new array.
+    """
+    n = values.size
+    out = np.empty(n)
+    if n == 0:
+        return out
+    out[0] = np.nan
+    out[1:] = values[:-1]
+    out[_edge_levels(batch)[0]] = np.nan
+    at, src = _prev_fixes(batch, valid)
+    out[at] = gather(values, src)
+    return out
+
+
+def next_values(batch: ProfileBatch, values: NDArray[np.float64], valid: NDArray[np.bool_]
+                ) -> NDArray[np.float64]:
+    """Value of the nearest valid level below each level in its profile, NaN if none.
+
+    The same as ``gather(values, next_valid_index(batch, valid))`` (see :func:`prev_values`).
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    values : ndarray of float64, shape (n_levels,)
+        Level values.
+    valid : ndarray of bool, shape (n_levels,)
+        Which levels may serve as neighbours.
+
+    Returns
+    -------
+    ndarray of float64, shape (n_levels,)
+        A new array.
+    """
+    n = values.size
+    out = np.empty(n)
+    if n == 0:
+        return out
+    out[-1] = np.nan
+    out[:-1] = values[1:]
+    out[_edge_levels(batch)[1]] = np.nan
+    at, src = _next_fixes(batch, valid)
+    out[at] = gather(values, src)
+    return out
+
+
+def _prev_fixes(batch: ProfileBatch, valid: NDArray[np.bool_]
+                ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Levels just below an invalid level, and their nearest valid level above (-1: none).
+
+    For a run of invalid levels ``a..b`` the level ``b + 1`` looks past the run to ``a - 1``,
+    unless that is in another profile. Works on the invalid levels only (few).
+    """
+    bad = np.flatnonzero(~valid)
+    if bad.size == 0:
+        return bad, bad
+    first = np.ones(bad.size, dtype=bool)
+    first[1:] = bad[1:] != bad[:-1] + 1
+    src = np.maximum.accumulate(np.where(first, bad, 0)) - 1  # above the run of invalids
+    at = bad + 1
+    if at[-1] == valid.size:
+        at, src = at[:-1], src[:-1]
+    top = batch.offsets[np.searchsorted(batch.offsets, at, side="right") - 1]
+    src[src < top] = -1
+    return at, src
+
+
+def _next_fixes(batch: ProfileBatch, valid: NDArray[np.bool_]
+                ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Levels just above an invalid level, and their nearest valid level below (-1: none)."""
+    n = valid.size
+    bad = np.flatnonzero(~valid)
+    if bad.size == 0:
+        return bad, bad
+    last = np.ones(bad.size, dtype=bool)
+    last[:-1] = bad[1:] != bad[:-1] + 1
+    src = np.minimum.accumulate(np.where(last, bad, n)[::-1])[::-1] + 1  # below the run
+    at = bad - 1
+    if at[0] < 0:
+        at, src = at[1:], src[1:]
+    end = batch.offsets[np.searchsorted(batch.offsets, at, side="right")]
+    src[src >= end] = -1
+    return at, src
+
+
+def _edge_levels(batch: ProfileBatch) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """First and last level of each non-empty profile."""
+    memo = _memo(batch)
+    if "edges" not in memo:
+        nonempty = batch.counts > 0
+        memo["edges"] = (batch.offsets[:-1][nonempty], batch.offsets[1:][nonempty] - 1)
+    return memo["edges"]
+
+
+def _shifted_index(batch: ProfileBatch, n: int, *, before: bool) -> NDArray[np.int64]:
+    """``i - 1`` (`before`) or ``i + 1`` for every level, -1 across a profile boundary."""
+    key = ("shifted", before)
     memo = _memo(batch)
     if key not in memo:
-        n = valid.size
-        big = np.iinfo(np.int64).max
-        idx = np.where(valid, np.arange(n, dtype=np.int64), big)
-        filled = np.minimum.accumulate(idx[::-1])[::-1] if n else idx
-        nxt = np.empty(n, dtype=np.int64)
-        if n:
-            nxt[-1] = big
-            nxt[:-1] = filled[1:]
-        nxt[nxt >= _bounds(batch)[1]] = -1
-        nxt.setflags(write=False)
-        memo[key] = nxt
+        idx = np.arange(-1, n - 1) if before else np.arange(1, n + 1)
+        idx[_edge_levels(batch)[0 if before else 1]] = -1
+        idx.setflags(write=False)
+        memo[key] = idx
     return memo[key]
 
 
 def _memo(batch: ProfileBatch) -> dict[Any, Any]:
-    """Per-batch cache of neighbour indices (batches are immutable; dropped with the batch)."""
+    """Per-batch cache of level geometry (batches are immutable; dropped with the batch)."""
     memo = _MEMO.get(batch)
     if memo is None:
         memo = _MEMO[batch] = {}
@@ -130,18 +245,57 @@ def _memo(batch: ProfileBatch) -> dict[Any, Any]:
     return memo
 
 
-def _digest(valid: NDArray[np.bool_]) -> bytes:
-    return hashlib.blake2b(np.packbits(valid).tobytes() + valid.size.to_bytes(8, "little"),
-                           digest_size=16).digest()
+def shallower_than(batch: ProfileBatch, breakpoint: float
+                   ) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
+    """Levels with pressure below `breakpoint`, and levels with a pressure (cached per batch).
 
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    breakpoint : float
+        Pressure, dbar.
 
-def _bounds(batch: ProfileBatch) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
-    """First index and one-past-last index of each level's profile."""
+    Returns
+    -------
+    shallow : ndarray of bool, shape (n_levels,)
+        ``pressure < breakpoint`` (False where pressure is missing).
+    has_pressure : ndarray of bool, shape (n_levels,)
+        ``pressure`` is not NaN.
+    """
     memo = _memo(batch)
-    if "bounds" not in memo:
-        pi = batch.profile_index
-        memo["bounds"] = (batch.offsets[:-1][pi], batch.offsets[1:][pi])
-    return memo["bounds"]
+    key = ("shallower", float(breakpoint))
+    if key not in memo:
+        p = batch.pressure
+        shallow = p < breakpoint
+        has_p = p == p
+        shallow.setflags(write=False)
+        has_p.setflags(write=False)
+        memo[key] = (shallow, has_p)
+    return memo[key]
+
+
+def grade_levels(applies: NDArray[np.bool_], fails: NDArray[np.bool_], fail_grade: int = 4
+                 ) -> NDArray[np.int8]:
+    """Grades of a pass/fail rule: 0 where it does not apply, 1 pass, `fail_grade` fail.
+
+    Parameters
+    ----------
+    applies : ndarray of bool, shape (n_levels,)
+        Levels the rule applies to.
+    fails : ndarray of bool, shape (n_levels,)
+        Levels that fail it (counted only where it applies).
+    fail_grade : int, default=4
+        Grade of a failing level.
+
+    Returns
+    -------
+    ndarray of int8, shape (n_levels,)
+    """
+    g = np.logical_and(fails, applies).view(np.int8)
+    g *= np.int8(fail_grade - 1)
+    g += applies.view(np.int8)
+    return g
 
 
 def gather(values: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.float64]:
@@ -166,11 +320,33 @@ def gather(values: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.
 
 def broadcast_profiles(batch: ProfileBatch, per_profile: NDArray) -> NDArray:
     """Repeat a per-profile array to levels, shape (n_levels,)."""
-    return np.asarray(per_profile)[batch.profile_index]
+    return np.repeat(np.asarray(per_profile), batch.counts)
+
+
+def profile_levels(batch: ProfileBatch, profiles: NDArray[np.int64]) -> NDArray[np.int64]:
+    """Level indices of the given profiles, in the order given.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    profiles : ndarray of int64
+        Profile numbers.
+
+    Returns
+    -------
+    ndarray of int64
+        The levels of ``profiles[0]``, then of ``profiles[1]``, ...
+    """
+    counts = batch.counts[profiles]
+    total = int(counts.sum())
+    shift = batch.offsets[:-1][profiles] - (np.cumsum(counts) - counts)
+    return np.arange(total, dtype=np.int64) + np.repeat(shift, counts)
 
 
 def profile_reduce(batch: ProfileBatch, values: NDArray[np.float64],
-                   valid: NDArray[np.bool_], kind: str) -> NDArray[np.float64]:
+                   valid: NDArray[np.bool_], kind: str | tuple[str, ...]
+                   ) -> NDArray[np.float64] | tuple[NDArray[np.float64], ...]:
     """Reduce the valid values of each profile to one number.
 
     Parameters
@@ -181,26 +357,36 @@ def profile_reduce(batch: ProfileBatch, values: NDArray[np.float64],
         Level values.
     valid : ndarray of bool, shape (n_levels,)
         Levels to include.
-    kind : {"min", "max", "count"}
-        The reduction.
+    kind : {"min", "max", "count"} or tuple of them
+        The reduction; a tuple asks for several at once (one pass to mask the values).
 
     Returns
     -------
-    ndarray of float64, shape (n_profiles,)
-        NaN for "min"/"max" of a profile without valid levels.
+    ndarray of float64, shape (n_profiles,), or a tuple of them (one per kind)
+        NaN for "min"/"max" of a profile without valid levels (and where the extreme is
+        infinite).
     """
-    if kind == "count":
-        return np.bincount(batch.profile_index, weights=valid.astype(np.float64),
-                           minlength=batch.n_profiles)
-    fill = np.inf if kind == "min" else -np.inf
-    ufunc = np.minimum if kind == "min" else np.maximum
-    out = np.full(batch.n_profiles, fill)
+    kinds = (kind,) if isinstance(kind, str) else tuple(kind)
     nonempty = np.flatnonzero(batch.counts > 0)
-    if nonempty.size:
-        filled = np.where(valid, values, fill)
-        out[nonempty] = ufunc.reduceat(filled, batch.offsets[:-1][nonempty])
-    out[np.isinf(out)] = np.nan
-    return out
+    starts = batch.offsets[:-1][nonempty]
+    masked = None
+    out: list[NDArray[np.float64]] = []
+    for k in kinds:
+        if k == "count":
+            skipped = np.flatnonzero(~valid)
+            drop = np.diff(np.searchsorted(skipped, batch.offsets))
+            out.append((batch.counts - drop).astype(np.float64))
+            continue
+        if k not in ("min", "max"):
+            raise ValueError(f"profile_reduce: unknown kind {k!r}")
+        if masked is None:
+            masked = np.where(valid, values, np.nan)
+        res = np.full(batch.n_profiles, np.nan)
+        if nonempty.size:  # fmin/fmax skip the NaN of invalid levels
+            res[nonempty] = (np.fmin if k == "min" else np.fmax).reduceat(masked, starts)
+        res[np.isinf(res)] = np.nan
+        out.append(res)
+    return out[0] if isinstance(kind, str) else tuple(out)
 
 
 def exceedance(values: NDArray[np.float64], minimum: float | None,
@@ -225,7 +411,8 @@ def exceedance(values: NDArray[np.float64], minimum: float | None,
         return values - maximum
     if maximum is None:
         return minimum - values
-    return np.maximum(minimum - values, values - maximum)  # NaN propagates
+    below = np.subtract(minimum, values)
+    return np.maximum(below, np.subtract(values, maximum), out=below)  # NaN propagates
 
 
 def inside_polygon(lat: NDArray[np.float64], lon: NDArray[np.float64],
@@ -298,10 +485,10 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
 
     The window of level ``i`` holds levels ``i - half_window .. i + half_window`` of the same
     profile that are `valid`. Windows whose every slot is a usable level of the profile (the
-    vast majority) go through a median selection network of element-wise minima and maxima
-    over the window's columns (exact: it only moves values), in cache-sized blocks of rows;
-    the few windows cut by a profile end or a gap are gathered into a matrix and sorted
-    row-wise (NaN last). No Python loop over levels or profiles.
+    vast majority) are computed exactly from sorted windows built with min/max networks
+    over column arrays (:func:`_pair_median_mad`, in cache-sized blocks); the few windows
+    cut by a profile end or a gap are gathered into a matrix and sorted row-wise (NaN
+    last). No Python loop over levels or profiles.
 
     Parameters
     ----------
@@ -318,7 +505,7 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
     -------
     median, mad : ndarray of float64, shape (n_levels,)
         NaN where the window holds no valid level. For an even count the median is the mean
-        of the two middle values.
+        of the two middle values. New arrays (the caller may write to them).
     count : ndarray of int64, shape (n_levels,)
         Valid levels in each window.
     """
@@ -327,28 +514,18 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
     w = 2 * k + 1
     if n == 0:
         return np.zeros(0), np.zeros(0), np.zeros(0, dtype=np.int64)
-    # usable values, padded with NaN so that every level has a full window view
-    padded = np.full(n + 2 * k, np.nan)
+    # usable values, padded with NaN so that every level has a full window view (two spare
+    # slots at the end for the pairwise blocks)
+    padded = np.full(n + 2 * k + 2, np.nan)
     np.copyto(padded[k:k + n], values, where=valid)
-    view = np.lib.stride_tricks.sliding_window_view(padded, w)
-    ok = np.zeros(n + 2 * k + 1, dtype=np.int64)
-    ok[k + 1:k + 1 + n] = np.cumsum(valid)
-    ok[k + 1 + n:] = ok[k + n]
-    count = ok[w:w + n] - ok[:n]
-    # windows reaching past their profile's ends (2k levels per profile): mask the slots
-    above = batch.level_index
-    below = batch.counts[batch.profile_index] - above - 1
-    offs = np.arange(-k, k + 1, dtype=np.int64)
-    edge = np.flatnonzero((above < k) | (below < k))
-    if edge.size:
-        outside = (offs[None, :] < -above[edge, None]) | (offs[None, :] > below[edge, None])
-        count[edge] = np.count_nonzero(~np.isnan(view[edge]) & ~outside, axis=1)
+    view = np.lib.stride_tricks.sliding_window_view(padded[:n + 2 * k], w)
+    count = _window_counts(batch, valid, k)
     full = count == w
-    med = np.full(n, np.nan)
-    mad = np.full(n, np.nan)
     if w <= _NETWORK_MAX:
-        _network_median_mad(padded, n, w, med, mad)  # rows not full are redone below
+        med, mad = _pair_median_mad(padded, n, k)  # rows not full are redone below
     else:
+        med = np.full(n, np.nan)
+        mad = np.full(n, np.nan)
         rows = np.flatnonzero(full)
         win = view[rows]
         win.partition(w // 2, axis=1)
@@ -358,8 +535,12 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
         mad[rows] = win[:, w // 2]
     rest = np.flatnonzero(~full)
     if rest.size:  # rows near profile ends or gaps: sort (NaN last) and pick
+        prof = np.searchsorted(batch.offsets, rest, side="right") - 1
+        above = rest - batch.offsets[prof]
+        below = batch.offsets[prof + 1] - rest - 1
+        offs = np.arange(-k, k + 1, dtype=np.int64)
         sub = view[rest]
-        sub[(offs[None, :] < -above[rest, None]) | (offs[None, :] > below[rest, None])] = np.nan
+        sub[(offs[None, :] < -above[:, None]) | (offs[None, :] > below[:, None])] = np.nan
         c = count[rest]
         m = _middle(np.sort(sub, axis=1), c)
         med[rest] = m
@@ -367,11 +548,64 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
     return med, mad, count
 
 
-_NETWORK_MAX = 31
-"""Largest window that uses the selection network (larger ones use np.partition)."""
+def _window_counts(batch: ProfileBatch, valid: NDArray[np.bool_], k: int) -> NDArray[np.int64]:
+    """Count the valid levels of the profile in each window ``i - k .. i + k``."""
+    n = valid.size
+    # cum[j + k] = valid levels before level j (levels past either end of the batch: none)
+    cum = np.zeros(n + 2 * k + 1, dtype=np.int64)
+    np.cumsum(valid, out=cum[k + 1:k + 1 + n])
+    cum[k + 1 + n:] = cum[k + n]
+    count = cum[2 * k + 1:] - cum[:n]
+    # windows that reach past their profile's top or bottom (k levels at each end): clip
+    top, bottom = _edge_levels(batch)
+    end = bottom + 1
+    step = np.arange(k, dtype=np.int64)
+    rows = np.concatenate([top[:, None] + step, bottom[:, None] - step]).ravel()
+    first = np.tile(top, 2)[:, None].repeat(k, axis=1).ravel()
+    stop = np.tile(end, 2)[:, None].repeat(k, axis=1).ravel()
+    keep = (rows >= first) & (rows < stop)
+    rows, first, stop = rows[keep], first[keep], stop[keep]
+    count[rows] = (cum[np.minimum(rows + k + 1, stop) + k]
+                   - cum[np.maximum(rows - k, first) + k])
+    return count
 
-_BLOCK = 8192
-"""Rows per block of the selection network (its columns stay in the CPU cache)."""
+
+_NETWORK_MAX = 31
+"""Largest window that uses the sorting networks (larger ones use np.partition)."""
+
+_PAIR_BLOCK = 8192
+"""Pairs of windows per block (the block's columns stay in the CPU cache)."""
+
+_SORTING_NETWORKS: dict[int, list[tuple[int, int]]] = {
+    # Smallest known comparator networks (common knowledge, e.g. Knuth, TAOCP vol. 3,
+    # 5.3.4); tests/test_checks_batch.py proves each one sorts by the 0-1 principle.
+    2: [(0, 1)],
+    4: [(0, 1), (2, 3), (0, 2), (1, 3), (1, 2)],
+    6: [(0, 5), (1, 3), (2, 4), (1, 2), (3, 4), (0, 3), (2, 5), (0, 1), (2, 3), (4, 5),
+        (1, 2), (3, 4)],
+    8: [(0, 2), (1, 3), (4, 6), (5, 7), (0, 4), (1, 5), (2, 6), (3, 7), (0, 1), (2, 3),
+        (4, 5), (6, 7), (2, 4), (3, 5), (1, 4), (3, 6), (1, 2), (3, 4), (5, 6)],
+    10: [(0, 8), (1, 9), (2, 7), (3, 5), (4, 6), (0, 2), (1, 4), (5, 8), (7, 9), (0, 3),
+         (2, 4), (5, 7), (6, 9), (0, 1), (3, 6), (8, 9), (1, 5), (2, 3), (4, 8), (6, 7),
+         (1, 2), (3, 5), (4, 6), (7, 8), (2, 3), (4, 5), (6, 7), (3, 4), (5, 6)],
+}
+
+
+def sorting_network(n: int) -> list[tuple[int, int]]:
+    """Return comparators ``(i, j)``, ``i < j``, that sort `n` wires (min to i, max to j).
+
+    Parameters
+    ----------
+    n : int
+        Number of wires.
+
+    Returns
+    -------
+    list of tuple of int
+        The smallest known network for the even sizes up to 10, else Batcher's odd-even
+        merge sort.
+    """
+    return _SORTING_NETWORKS.get(n) or _merge_network(n)
 
 
 def _merge_network(n: int) -> list[tuple[int, int]]:
@@ -398,55 +632,65 @@ def _merge_network(n: int) -> list[tuple[int, int]]:
     return out
 
 
-_SELECTORS: dict[int, list[tuple[int, int, bool, bool]]] = {}
+def _pair_median_mad(padded: NDArray[np.float64], n: int, k: int
+                     ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Median and MAD of every window ``padded[i:i + 2k + 1]``, exact where it holds numbers.
 
-
-def _selector(w: int) -> list[tuple[int, int, bool, bool]]:
-    """Return the sorting network of `w` wires pruned to what the middle wire needs.
-
-    Each entry is ``(i, j, keep_min, keep_max)``: compare wires ``i < j`` and store the
-    minimum on ``i`` and/or the maximum on ``j`` (only the outputs used later).
+    Windows ``2q`` and ``2q + 1`` share the ``2k`` values ``padded[2q + 1:2q + 2k + 1]``:
+    these are sorted once per pair with a sorting network of element-wise minima and maxima
+    (:func:`sorting_network`); each window then inserts its own extra value ``x``
+    (``t_a = min(max(s_(a-1), x), s_a)``), which gives its sorted values ``t_0 .. t_2k`` and
+    the median ``m = t_k``. The MAD is the ``(k+1)``-th smallest ``|t_a - m|``: the
+    ``k + 1`` values nearest to ``m`` are ``k + 1`` consecutive sorted values around
+    ``t_k``, so it is ``min over a = 0..k of max(m - t_a, t_(a+k) - m)``. Every operation
+    only moves values or forms the same differences ``|t_a - m|`` that a direct
+    computation forms (``m - t`` is exactly ``-(t - m)``), so the results are bit-identical
+    to sorting each window. Rows whose window holds NaN give NaN or junk and are redone by
+    the caller. Works in blocks of :data:`_PAIR_BLOCK` pairs; `padded` needs
+    ``n + 2k + 2`` entries.
     """
-    if w not in _SELECTORS:
-        needed = {w // 2}
-        kept: list[tuple[int, int, bool, bool]] = []
-        for i, j in reversed(_merge_network(w)):
-            lo, hi = i in needed, j in needed
-            if lo or hi:
-                kept.append((i, j, lo, hi))
-                needed |= {i, j}
-        _SELECTORS[w] = kept[::-1]
-    return _SELECTORS[w]
-
-
-def _network_median_mad(padded: NDArray[np.float64], n: int, w: int,
-                        med: NDArray[np.float64], mad: NDArray[np.float64]) -> None:
-    """Middle value of each full window and of its absolute deviations, into `med`, `mad`.
-
-    Window ``i`` is ``padded[i:i + w]``. Only rows whose window holds `w` numbers are
-    meaningful (others are overwritten by the caller).
-    """
-    net = _selector(w)
-    mid = w // 2
-    for s in range(0, n, _BLOCK):
-        e = min(s + _BLOCK, n)
-        cols = [padded[s + j:e + j] for j in range(w)]
-        m = _select(cols, net, mid)
-        med[s:e] = m
-        mad[s:e] = _select([np.abs(c - m) for c in cols], net, mid)
-
-
-def _select(cols: list[NDArray[np.float64]], net: list[tuple[int, int, bool, bool]],
-            mid: int) -> NDArray[np.float64]:
-    """Run the pruned network on column arrays (inputs are not modified)."""
-    cols = list(cols)
-    for i, j, lo, hi in net:
-        a, b = cols[i], cols[j]
-        if lo:
-            cols[i] = np.minimum(a, b)
-        if hi:
-            cols[j] = np.maximum(a, b)
-    return cols[mid]
+    w = 2 * k + 1
+    n_pairs = (n + 1) // 2
+    med = np.empty(2 * n_pairs)
+    mad = np.empty(2 * n_pairs)
+    net = sorting_network(2 * k)
+    size = min(_PAIR_BLOCK, n_pairs)
+    core = [np.empty(size) for _ in range(2 * k)]
+    t = [np.empty(size) for _ in range(w)]
+    x, spare, d1, d2, scale = (np.empty(size) for _ in range(5))
+    for q0 in range(0, n_pairs, size):
+        q1 = min(q0 + size, n_pairs)
+        m = q1 - q0
+        s = [c[:m] for c in core]
+        for j in range(2 * k):
+            np.copyto(s[j], padded[2 * q0 + 1 + j:2 * q1 + 1 + j:2])
+        tmp = spare[:m]
+        for i, j in net:  # sort the shared values in place
+            np.minimum(s[i], s[j], out=tmp)
+            np.maximum(s[i], s[j], out=s[j])
+            s[i], tmp = tmp, s[i]
+            core[i], spare = spare, core[i]  # the same swap on the whole buffers
+        tt = [c[:m] for c in t]
+        xx, e1, e2, md = x[:m], d1[:m], d2[:m], scale[:m]
+        for parity, start in ((0, 2 * q0), (1, 2 * q0 + w)):
+            np.copyto(xx, padded[start:start + 2 * m:2])
+            np.minimum(s[0], xx, out=tt[0])  # insert x: sorted window t
+            for a in range(1, 2 * k):
+                np.maximum(s[a - 1], xx, out=tt[a])
+                np.minimum(tt[a], s[a], out=tt[a])
+            np.maximum(s[2 * k - 1], xx, out=tt[2 * k])
+            mid = tt[k]
+            np.subtract(mid, tt[0], out=md)  # a = 0
+            np.subtract(tt[2 * k], mid, out=e1)  # a = k
+            np.minimum(md, e1, out=md)
+            for a in range(1, k):
+                np.subtract(mid, tt[a], out=e1)
+                np.subtract(tt[a + k], mid, out=e2)
+                np.maximum(e1, e2, out=e1)
+                np.minimum(md, e1, out=md)
+            med[2 * q0 + parity:2 * q1:2] = mid
+            mad[2 * q0 + parity:2 * q1:2] = md
+    return med[:n], mad[:n]
 
 
 def _middle(sorted_rows: NDArray[np.float64], count: NDArray[np.int64]) -> NDArray[np.float64]:

@@ -7,7 +7,7 @@ from typing import TYPE_CHECKING
 import gsw
 import numpy as np
 
-from qcflag.checks._ragged import next_valid_index, usable
+from qcflag.checks._ragged import broadcast_profiles, grade_levels
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -91,23 +91,38 @@ def density_inversion(
     rule, which would also fail nearly homogeneous layers (qc-standards.md §4.3 note).
     """
     t, s, p = batch.temperature, batch.salinity, batch.pressure
-    lon = batch.per_level("longitude").astype(np.float64)
-    lat = batch.per_level("latitude").astype(np.float64)
-    SA = gsw.SA_from_SP(s, p, lon, lat)  # elementwise; NaN in -> NaN out
-    CT = gsw.CT_from_t(SA, t, p)
-    ok = usable(CT, exclude) & np.isfinite(SA)
-    nxt = next_valid_index(batch, ok)
-    up = np.flatnonzero(ok & (nxt >= 0))
-    lo = nxt[up]
-    drop = pair_density_drop(SA[up], CT[up], p[up], SA[lo], CT[lo], p[lo])
-    stat = np.full(t.size, np.nan)
-    stat[up] = drop  # as the shallower level of its pair below
-    stat[lo] = np.fmax(stat[lo], drop)  # as the deeper level of its pair above
-    grade = np.where(stat > threshold, 4, 1).astype(np.int8)
-    grade[np.isnan(stat)] = 0
-    out = {}
-    for name, v in (("temperature", t), ("salinity", s)):
-        g = grade.copy()
-        g[np.isnan(v)] = 0
-        out[name] = CheckResult(stat.copy(), g)
-    return out
+    n = t.size
+    lon = batch.profiles["longitude"].to_numpy(dtype=np.float64)
+    lat = batch.profiles["latitude"].to_numpy(dtype=np.float64)
+    # Levels that can be in a pair: all inputs present and not already graded bad. gsw is
+    # evaluated on these only (it is elementwise, so the values are the same as on all).
+    use = np.isfinite(t)
+    use &= np.isfinite(s)
+    use &= np.isfinite(p)
+    if exclude is not None:
+        use &= ~exclude
+    located = np.isfinite(lon) & np.isfinite(lat)
+    if not located.all():
+        use &= broadcast_profiles(batch, located)
+    pos = np.flatnonzero(use)
+    per_profile = np.diff(np.searchsorted(pos, batch.offsets))
+    p_u = p[pos]
+    SA = gsw.SA_from_SP(s[pos], p_u, np.repeat(lon, per_profile), np.repeat(lat, per_profile))
+    CT = gsw.CT_from_t(SA, t[pos], p_u)
+    good = np.isfinite(SA) & np.isfinite(CT)
+    if not good.all():
+        pos, SA, CT, p_u = pos[good], SA[good], CT[good], p_u[good]
+    m = pos.size
+    # pairs of consecutive usable levels; the few that straddle two profiles are dropped
+    drop = np.full(m + 1, np.nan)  # drop[k + 1]: pair (k, k + 1) in compact order
+    if m > 1:
+        drop[1:m] = pair_density_drop(SA[:-1], CT[:-1], p_u[:-1], SA[1:], CT[1:], p_u[1:])
+        starts = np.searchsorted(pos, batch.offsets[1:-1])  # compact index of a profile top
+        drop[starts[(starts > 0) & (starts < m)]] = np.nan
+    stat = np.full(n, np.nan)
+    # as the shallower level of the pair below, then the deeper level of the pair above
+    stat[pos] = np.fmax(drop[1:], drop[:-1])
+    # a level with a statistic has both temperature and salinity, so one grade serves both
+    grade = grade_levels(stat == stat, stat > threshold)
+    return {"temperature": CheckResult(stat, grade),
+            "salinity": CheckResult(stat.copy(), grade.copy())}

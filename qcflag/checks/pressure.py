@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import gather, prev_valid_index, usable
+from qcflag.checks._ragged import broadcast_profiles, grade_levels, prev_values, usable
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -57,21 +57,21 @@ def pressure_increasing(
     ok = usable(p, exclude)
     # Fast path: where every usable pressure exceeds the previous usable one, the running
     # maximum above a level is simply the previous usable pressure.
-    prev = gather(p, prev_valid_index(batch, ok))
-    stat = prev - p
-    irregular = np.zeros(batch.n_profiles, dtype=bool)
-    irregular[batch.profile_index[ok & (stat >= 0)]] = True
-    if irregular.any():
-        lv = irregular[batch.profile_index]
-        stat[lv] = _running_max_before(batch, p, ok, lv) - p[lv]
+    stat = prev_values(batch, p, ok)
+    np.subtract(stat, p, out=stat)  # previous usable pressure - pressure
     fail = stat >= 0
-    grade = np.where(fail, 4, 1).astype(np.int8)
-    grade[np.isnan(p)] = 0
+    not_rising = np.flatnonzero(fail & ok)
+    if not_rising.size:
+        irregular = np.zeros(batch.n_profiles, dtype=bool)
+        irregular[np.searchsorted(batch.offsets, not_rising, side="right") - 1] = True
+        lv = broadcast_profiles(batch, irregular)
+        stat[lv] = _running_max_before(batch, p, ok, lv) - p[lv]
+        np.greater_equal(stat, 0, out=fail)
+    grade = grade_levels(p == p, fail)  # fail is False where stat (or p) is NaN
     out = {"pressure": CheckResult(stat, grade)}
     for name in ("temperature", "salinity"):
-        g = grade.copy()
-        g[np.isnan(batch.values(name))] = 0
-        out[name] = CheckResult(stat.copy(), g)
+        v = batch.values(name)
+        out[name] = CheckResult(stat.copy(), grade * (v == v).view(np.int8))
     return out
 
 

@@ -11,12 +11,10 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from qcflag.checks._ragged import broadcast_profiles, exceedance, inside_polygon
+from qcflag.checks._ragged import exceedance, grade_levels, inside_polygon, profile_levels
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
-    from numpy.typing import NDArray
-
     from qcflag.profiles import ProfileBatch
 
 __all__ = ["global_range", "regional_range"]
@@ -59,24 +57,21 @@ def global_range(
     v = batch.values(variable)
     lower = suspect_at_or_below if suspect_at_or_below is not None else minimum
     stat = exceedance(v, lower, maximum)
-    grade = np.ones(v.size, dtype=np.int8)
-    if suspect_at_or_below is not None:
-        grade[v <= suspect_at_or_below] = 3
-    bad = np.zeros(v.size, dtype=bool)
-    if minimum is not None:
-        bad |= v < minimum
+    bad = np.zeros(v.size, dtype=bool) if minimum is None else v < minimum
     if maximum is not None:
         bad |= v > maximum
-    grade[bad] = 4
-    grade[np.isnan(v)] = 0
+    grade = grade_levels(v == v, bad)  # comparisons with NaN are False
+    if suspect_at_or_below is not None:
+        suspect = v <= suspect_at_or_below
+        suspect &= ~bad
+        grade += suspect.view(np.int8) * np.int8(2)  # 1 -> 3
     result = CheckResult(stat, grade)
     if not also_flag:
         return result
     out = {variable: result}
     for other in also_flag:
-        g = grade.copy()
-        g[np.isnan(batch.values(other))] = 0
-        out[other] = CheckResult(stat.copy(), g)
+        w = batch.values(other)
+        out[other] = CheckResult(stat.copy(), grade * (w == w).view(np.int8))
     return out
 
 
@@ -111,12 +106,11 @@ def regional_range(
     stat = np.full(v.size, np.nan)
     grade = np.zeros(v.size, dtype=np.int8)
     for region in regions:  # a handful of regions, each vectorised over all profiles
-        inside: NDArray[np.bool_] = broadcast_profiles(
-            batch, inside_polygon(lat, lon, np.asarray(region["polygon"], dtype=np.float64))
-        )
-        d = exceedance(v, region.get("minimum"), region.get("maximum"))
+        inside = inside_polygon(lat, lon, np.asarray(region["polygon"], dtype=np.float64))
+        sel = profile_levels(batch, np.flatnonzero(inside))  # levels of those profiles only
+        sel = sel[~np.isnan(v[sel])]
+        d = exceedance(v[sel], region.get("minimum"), region.get("maximum"))
         g = np.where(d > 0, 4, 1).astype(np.int8)
-        sel = inside & ~np.isnan(v)
-        stat[sel] = np.fmax(stat[sel], d[sel])
-        grade[sel] = np.maximum(grade[sel], g[sel])
+        stat[sel] = np.fmax(stat[sel], d)
+        grade[sel] = np.maximum(grade[sel], g)
     return CheckResult(stat, grade)

@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import gather, prev_valid_index, usable
+from qcflag.checks._ragged import grade_levels, prev_values, usable
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -51,7 +51,7 @@ def digit_rollover(
         NaN at the first usable level of a profile.
     """
     v = batch.values(variable)
-    stat = np.abs(v - gather(v, prev_valid_index(batch, usable(v, exclude))))
-    grade = np.where(stat > limit, 4, 1).astype(np.int8)
-    grade[np.isnan(stat)] = 0
-    return CheckResult(stat, grade)
+    stat = prev_values(batch, v, usable(v, exclude))
+    np.subtract(v, stat, out=stat)
+    np.abs(stat, out=stat)
+    return CheckResult(stat, grade_levels(stat == stat, stat > limit))

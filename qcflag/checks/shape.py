@@ -8,10 +8,9 @@ import numpy as np
 
 from qcflag.checks._ragged import (
     broadcast_profiles,
-    gather,
     moving_median_mad,
-    next_valid_index,
-    prev_valid_index,
+    next_values,
+    prev_values,
     profile_reduce,
     usable,
 )
@@ -64,7 +63,10 @@ def robust_z(
     """
     v = batch.values(variable)
     med, mad, count = moving_median_mad(batch, v, usable(v, exclude), half_window)
-    stat = (v - med) / np.maximum(MAD_TO_SD * mad, min_scale)
+    np.multiply(MAD_TO_SD, mad, out=mad)  # (v - med) / max(MAD_TO_SD * mad, min_scale)
+    np.maximum(mad, min_scale, out=mad)
+    stat = np.subtract(v, med, out=med)
+    stat /= mad
     stat[count < 3] = np.nan
     return _no_verdict(stat)
 
@@ -94,17 +96,20 @@ def second_difference(
     """
     v = batch.values(variable)
     ok = usable(v, exclude)
-    v1 = gather(v, prev_valid_index(batch, ok))
-    v3 = gather(v, next_valid_index(batch, ok))
-    return _no_verdict(v1 - 2 * v + v3)
+    stat = np.multiply(v, 2)  # V1 - 2 V2 + V3, evaluated left to right as written
+    np.subtract(prev_values(batch, v, ok), stat, out=stat)
+    stat += next_values(batch, v, ok)
+    return _no_verdict(stat)
 
 
 def _edge_distance(batch: ProfileBatch, variable: str, kind: str) -> NDArray[np.float64]:
     v = batch.values(variable)
     p = batch.pressure
-    ok = np.isfinite(v) & np.isfinite(p)
-    edge = broadcast_profiles(batch, profile_reduce(batch, p, ok, kind))
-    stat = np.abs(p - edge)
+    ok = np.isfinite(v)
+    ok &= np.isfinite(p)
+    stat = broadcast_profiles(batch, profile_reduce(batch, p, ok, kind))
+    np.subtract(p, stat, out=stat)  # |p - edge|
+    np.abs(stat, out=stat)
     stat[~ok] = np.nan
     return stat
 

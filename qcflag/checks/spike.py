@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import gather, next_valid_index, prev_valid_index, usable
+from qcflag.checks._ragged import grade_levels, next_values, prev_values, shallower_than, usable
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -43,17 +43,14 @@ def neighbours(
     v1, v3 : ndarray of float64, shape (n_levels,)
     """
     ok = usable(values, exclude)
-    return (gather(values, prev_valid_index(batch, ok)),
-            gather(values, next_valid_index(batch, ok)))
+    return prev_values(batch, values, ok), next_values(batch, values, ok)
 
 
 def _grade_by_pressure(batch: ProfileBatch, stat: NDArray[np.float64], shallow_limit: float,
                        deep_limit: float, breakpoint: float) -> NDArray[np.int8]:
-    p = batch.pressure
-    limit = np.where(p < breakpoint, shallow_limit, deep_limit)
-    grade = np.where(stat > limit, 4, 1).astype(np.int8)
-    grade[np.isnan(stat) | np.isnan(p)] = 0
-    return grade
+    shallow, has_p = shallower_than(batch, breakpoint)
+    fails = np.where(shallow, stat > shallow_limit, stat > deep_limit)
+    return grade_levels(np.logical_and(stat == stat, has_p), fails)
 
 
 def spike(
@@ -89,7 +86,15 @@ def spike(
     """
     v = batch.values(variable)
     v1, v3 = neighbours(batch, v, exclude)
-    stat = np.abs(v - (v3 + v1) / 2) - np.abs((v3 - v1) / 2)
+    # |V2 - (V3 + V1)/2| - |(V3 - V1)/2|, in place in the neighbour arrays (same operations)
+    stat = np.add(v3, v1)
+    stat /= 2
+    np.subtract(v, stat, out=stat)
+    np.abs(stat, out=stat)
+    half = np.subtract(v3, v1, out=v3)
+    half /= 2
+    np.abs(half, out=half)
+    stat -= half
     return CheckResult(stat, _grade_by_pressure(batch, stat, shallow_limit, deep_limit,
                                                 breakpoint))
 
@@ -126,6 +131,9 @@ def gradient(
     """
     v = batch.values(variable)
     v1, v3 = neighbours(batch, v, exclude)
-    stat = np.abs(v - (v3 + v1) / 2)
+    stat = np.add(v3, v1, out=v3)  # |V2 - (V3 + V1)/2|, in place (same operations)
+    stat /= 2
+    np.subtract(v, stat, out=stat)
+    np.abs(stat, out=stat)
     return CheckResult(stat, _grade_by_pressure(batch, stat, shallow_limit, deep_limit,
                                                 breakpoint))

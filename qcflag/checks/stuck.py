@@ -7,9 +7,9 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from qcflag.checks._ragged import (
+    _prev_fixes,
     broadcast_profiles,
-    gather,
-    prev_valid_index,
+    prev_values,
     profile_reduce,
     usable,
 )
@@ -54,13 +54,15 @@ def stuck_value(
     """
     v = batch.values(variable)
     ok = usable(v, exclude)
-    spread = profile_reduce(batch, v, ok, "max") - profile_reduce(batch, v, ok, "min")
-    enough = profile_reduce(batch, v, ok, "count") >= min_levels
-    spread[~enough] = np.nan
-    stat = broadcast_profiles(batch, spread)
-    grade = np.where(stat == 0, 4, 1).astype(np.int8)
-    grade[np.isnan(stat) | np.isnan(v)] = 0
-    return CheckResult(stat, grade)
+    lo, hi, count = profile_reduce(batch, v, ok, ("min", "max", "count"))
+    spread = hi - lo
+    spread[count < min_levels] = np.nan
+    # grade per profile, then repeated to its levels (0 where the value is missing)
+    per_profile = np.where(spread == 0, 4, 1).astype(np.int8)
+    per_profile[np.isnan(spread)] = 0
+    grade = broadcast_profiles(batch, per_profile)
+    grade *= (v == v).view(np.int8)
+    return CheckResult(broadcast_profiles(batch, spread), grade)
 
 
 def flat_line(
@@ -111,24 +113,35 @@ def flat_line(
     """
     v = batch.values(variable)
     ok = usable(v, exclude)
-    # compact the usable levels so that a run continues across skipped levels
-    prev = gather(v, prev_valid_index(batch, ok))
-    same = ok & (np.abs(v - prev) <= eps)
-    idx = np.flatnonzero(ok)
-    if idx.size:
-        sub_pi = batch.profile_index[idx]
-        first = np.ones(idx.size, dtype=bool)
-        first[1:] = sub_pi[1:] != sub_pi[:-1]
-        starts = ~same[idx] | first
-        run_id = np.cumsum(starts) - 1
-        length = np.bincount(run_id)[run_id]
-    else:
-        length = np.zeros(0, dtype=np.int64)
+    diff = prev_values(batch, v, ok)  # previous usable value (NaN at a profile's first)
+    np.subtract(v, diff, out=diff)
+    np.abs(diff, out=diff)
+    same = diff <= eps
+    same &= ok  # usable levels that continue the run of the usable level above them
+    # every usable level is a run of 1 unless it is in a run with a continuing level
     stat = np.full(v.size, np.nan)
-    stat[idx] = length
-    grade = np.ones(v.size, dtype=np.int8)
-    grade[stat >= suspect_count + 1] = 3
-    grade[stat >= fail_count + 1] = 4
-    grade[np.isnan(stat)] = 0
+    np.copyto(stat, 1.0, where=ok)
+    grade = ok.astype(np.int8)
+    cont = np.flatnonzero(same)
+    if cont.size:
+        # continuing levels with no usable level between them are in the same run
+        skipped = np.flatnonzero(~ok)
+        rank = cont - np.searchsorted(skipped, cont)  # usable levels above each
+        new_run = np.ones(cont.size, dtype=bool)
+        new_run[1:] = rank[1:] != rank[:-1] + 1
+        run = np.cumsum(new_run) - 1
+        length = np.bincount(run) + 1
+        # a run's first level: the usable level above its first continuing level
+        head = cont[new_run] - 1
+        below_gap, above_gap = _prev_fixes(batch, ok)
+        at = np.minimum(np.searchsorted(below_gap, head + 1), max(below_gap.size - 1, 0))
+        hit = below_gap[at] == head + 1 if below_gap.size else np.zeros(head.size, bool)
+        head[hit] = above_gap[at[hit]]
+        run_grade = np.ones(length.size, dtype=np.int8)
+        run_grade[length >= suspect_count + 1] = 3
+        run_grade[length >= fail_count + 1] = 4
+        stat[head] = length
+        stat[cont] = length[run]
+        grade[head] = run_grade
+        grade[cont] = run_grade[run]
     return CheckResult(stat, grade)
-
