@@ -139,7 +139,7 @@ def prev_values(batch: ProfileBatch, values: NDArray[np.float64], valid: NDArray
     out[1:] = values[:-1]
     out[_edge_levels(batch)[0]] = np.nan
     at, src = _prev_fixes(batch, valid)
-    out[at] = gather(values, src)
+    out[at] = _take(values, src)
     return out
 
 
@@ -171,7 +171,14 @@ def next_values(batch: ProfileBatch, values: NDArray[np.float64], valid: NDArray
     out[:-1] = values[1:]
     out[_edge_levels(batch)[1]] = np.nan
     at, src = _next_fixes(batch, valid)
-    out[at] = gather(values, src)
+    out[at] = _take(values, src)
+    return out
+
+
+def _take(values: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.float64]:
+    """Return ``values[index]`` with NaN where the index is -1 (for a few indices)."""
+    out = values[index]
+    out[index < 0] = np.nan
     return out
 
 

@@ -104,24 +104,34 @@ def density_inversion(
     located = np.isfinite(lon) & np.isfinite(lat)
     if not located.all():
         use &= broadcast_profiles(batch, located)
-    pos = np.flatnonzero(use)
-    per_profile = np.diff(np.searchsorted(pos, batch.offsets))
-    p_u = p[pos]
-    SA = gsw.SA_from_SP(s[pos], p_u, np.repeat(lon, per_profile), np.repeat(lat, per_profile))
-    CT = gsw.CT_from_t(SA, t[pos], p_u)
+    per_profile = batch.counts - np.diff(np.searchsorted(np.flatnonzero(~use), batch.offsets))
+    p_u = p[use]
+    lon_u = np.repeat(lon, per_profile)
+    lat_u = np.repeat(lat, per_profile)
+    SA = gsw.SA_from_SP(s[use], p_u, lon_u, lat_u)
+    t_u = t[use]
+    CT = gsw.CT_from_t(SA, t_u, p_u)
     good = np.isfinite(SA) & np.isfinite(CT)
     if not good.all():
-        pos, SA, CT, p_u = pos[good], SA[good], CT[good], p_u[good]
-    m = pos.size
-    # pairs of consecutive usable levels; the few that straddle two profiles are dropped
-    drop = np.full(m + 1, np.nan)  # drop[k + 1]: pair (k, k + 1) in compact order
+        use[use] = good
+        SA, CT, p_u = SA[good], CT[good], p_u[good]
+        per_profile = batch.counts - np.diff(np.searchsorted(np.flatnonzero(~use),
+                                                             batch.offsets))
+    m = SA.size
+    # pairs of consecutive usable levels (compact order); the few that straddle two
+    # profiles are dropped. drop[k + 1] is the pair (k, k + 1), as pair_density_drop
+    # computes it (into the position arrays, no longer needed).
+    drop = np.full(m + 1, np.nan)
     if m > 1:
-        drop[1:m] = pair_density_drop(SA[:-1], CT[:-1], p_u[:-1], SA[1:], CT[1:], p_u[1:])
-        starts = np.searchsorted(pos, batch.offsets[1:-1])  # compact index of a profile top
-        drop[starts[(starts > 0) & (starts < m)]] = np.nan
+        p_mid = np.add(p_u[:-1], p_u[1:], out=lon_u[:m - 1])
+        p_mid /= 2
+        upper = gsw.rho(SA[:-1], CT[:-1], p_mid, out=lat_u[:m - 1])
+        np.subtract(upper, gsw.rho(SA[1:], CT[1:], p_mid, out=t_u[:m - 1]), out=drop[1:m])
+        tops = np.cumsum(per_profile)[:-1]  # compact index of each profile's first level
+        drop[tops[(tops > 0) & (tops < m)]] = np.nan
     stat = np.full(n, np.nan)
     # as the shallower level of the pair below, then the deeper level of the pair above
-    stat[pos] = np.fmax(drop[1:], drop[:-1])
+    stat[use] = np.fmax(drop[1:], drop[:-1], out=CT)
     # a level with a statistic has both temperature and salinity, so one grade serves both
     grade = grade_levels(stat == stat, stat > threshold)
     return {"temperature": CheckResult(stat, grade),

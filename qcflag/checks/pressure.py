@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import broadcast_profiles, grade_levels, prev_values, usable
+from qcflag.checks._ragged import grade_levels, prev_values, usable
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -62,10 +62,9 @@ def pressure_increasing(
     fail = stat >= 0
     not_rising = np.flatnonzero(fail & ok)
     if not_rising.size:
-        irregular = np.zeros(batch.n_profiles, dtype=bool)
-        irregular[np.searchsorted(batch.offsets, not_rising, side="right") - 1] = True
-        lv = broadcast_profiles(batch, irregular)
-        stat[lv] = _running_max_before(batch, p, ok, lv) - p[lv]
+        irregular = np.unique(np.searchsorted(batch.offsets, not_rising, side="right") - 1)
+        lv, above = _running_max_before(batch, p, ok, irregular)
+        stat[lv] = above - p[lv]
         np.greater_equal(stat, 0, out=fail)
     grade = grade_levels(p == p, fail)  # fail is False where stat (or p) is NaN
     out = {"pressure": CheckResult(stat, grade)}
@@ -76,25 +75,28 @@ def pressure_increasing(
 
 
 def _running_max_before(batch: ProfileBatch, p: NDArray[np.float64], ok: NDArray[np.bool_],
-                        levels: NDArray[np.bool_]) -> NDArray[np.float64]:
-    """Largest usable pressure above each selected level in its profile (NaN if none).
+                        profiles: NDArray[np.int64]) -> tuple[NDArray[np.int64],
+                                                              NDArray[np.float64]]:
+    """Largest usable pressure above each level of `profiles` in its profile (NaN if none).
 
-    Pressures are ranked (exact integer keys), the key is offset by ``profile * n_ranks``
-    so that profiles never mix, and :func:`numpy.maximum.accumulate` runs over all of them.
-    `levels` must select whole profiles.
+    A segmented running maximum by doubling: after the pass with step ``s`` each level
+    holds the maximum of the usable pressures of the ``2 s`` levels ending at it in its
+    profile, so ``log2(longest profile)`` vectorised passes suffice (maxima are exact).
+    Returns the levels of `profiles` (in order) and the maxima.
     """
-    pi = batch.profile_index[levels]
-    sub_ok = ok[levels]
-    uniq, rank = np.unique(p[levels][sub_ok], return_inverse=True)
-    n_rank = max(int(uniq.size), 1)
-    key = pi * n_rank - 1  # unusable levels: below every key of their profile
-    key[sub_ok] = pi[sub_ok] * n_rank + rank.ravel()
-    run = np.maximum.accumulate(key)
-    before = np.empty_like(run)
-    before[0] = -1
-    before[1:] = run[:-1]
-    before_rank = before - pi * n_rank
-    out = np.full(pi.size, np.nan)
-    has = before_rank >= 0
-    out[has] = uniq[before_rank[has]]
-    return out
+    counts = batch.counts[profiles]
+    depth = np.arange(int(counts.sum()), dtype=np.int64)
+    depth -= np.repeat(np.cumsum(counts) - counts, counts)  # level number in its profile
+    sel = depth + np.repeat(batch.offsets[:-1][profiles], counts)
+    run = np.where(ok[sel], p[sel], -np.inf)
+    step = 1
+    longest = int(depth.max(initial=0)) + 1
+    while step < longest:
+        # overlapping input and output: numpy reads the inputs as they were before the pass
+        np.maximum(run[step:], run[:-step], out=run[step:], where=depth[step:] >= step)
+        step *= 2
+    out = np.full(sel.size, np.nan)
+    out[1:] = run[:-1]  # the maximum above a level: up to the level before it
+    out[depth == 0] = np.nan
+    out[np.isneginf(out)] = np.nan
+    return sel, out
