@@ -526,11 +526,23 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
     padded = np.full(n + 2 * k + 2, np.nan)
     np.copyto(padded[k:k + n], values, where=valid)
     view = np.lib.stride_tricks.sliding_window_view(padded[:n + 2 * k], w)
-    count = _window_counts(batch, valid, k)
-    full = count == w
+    # windows cut by a profile end or holding an unusable level (few): the rest are full
+    rest = _cut_windows(batch, valid, k)
+    prof = np.searchsorted(batch.offsets, rest, side="right") - 1
+    above = rest - batch.offsets[prof]
+    below = batch.offsets[prof + 1] - rest - 1
+    offs = np.arange(-k, k + 1, dtype=np.int64)
+    sub = view[rest].T.copy()  # one row per window slot, one column per cut window
+    sub[(offs[:, None] < -above) | (offs[:, None] > below)] = np.nan
+    present = sub == sub
+    c = np.count_nonzero(present, axis=0)
+    count = np.full(n, w, dtype=np.int64)
+    count[rest] = c
     if w <= _NETWORK_MAX:
-        med, mad = _pair_median_mad(padded, n, k)  # rows not full are redone below
+        med, mad = _pair_median_mad(padded, n, k)  # cut windows are redone below
     else:
+        full = np.ones(n, dtype=bool)
+        full[rest] = False
         med = np.full(n, np.nan)
         mad = np.full(n, np.nan)
         rows = np.flatnonzero(full)
@@ -540,41 +552,42 @@ def moving_median_mad(batch: ProfileBatch, values: NDArray[np.float64],
         win = np.abs(view[rows] - med[rows, None])
         win.partition(w // 2, axis=1)
         mad[rows] = win[:, w // 2]
-    rest = np.flatnonzero(~full)
-    if rest.size:  # rows near profile ends or gaps: sort (NaN last) and pick
-        prof = np.searchsorted(batch.offsets, rest, side="right") - 1
-        above = rest - batch.offsets[prof]
-        below = batch.offsets[prof + 1] - rest - 1
-        offs = np.arange(-k, k + 1, dtype=np.int64)
-        sub = view[rest]
-        sub[(offs[None, :] < -above[:, None]) | (offs[None, :] > below[:, None])] = np.nan
-        c = count[rest]
-        m = _middle(np.sort(sub, axis=1), c)
+    if rest.size:  # sort each cut window (missing slots as +inf, last) and pick
+        np.copyto(sub, np.inf, where=~present)
+        m = _middle(_sort_columns(sub), c)
         med[rest] = m
-        mad[rest] = _middle(np.sort(np.abs(sub - m[:, None]), axis=1), c)
+        np.subtract(sub, m, out=sub)
+        np.abs(sub, out=sub)
+        mad[rest] = _middle(_sort_columns(sub), c)
     return med, mad, count
 
 
-def _window_counts(batch: ProfileBatch, valid: NDArray[np.bool_], k: int) -> NDArray[np.int64]:
-    """Count the valid levels of the profile in each window ``i - k .. i + k``."""
+def _cut_windows(batch: ProfileBatch, valid: NDArray[np.bool_], k: int) -> NDArray[np.int64]:
+    """Return the levels whose window is cut: within `k` of a profile end or invalid level.
+
+    The window ``i - k .. i + k`` of every other level holds ``2k + 1`` valid levels of its
+    profile. Sorted level indices.
+    """
     n = valid.size
-    # cum[j + k] = valid levels before level j (levels past either end of the batch: none)
-    cum = np.zeros(n + 2 * k + 1, dtype=np.int64)
-    np.cumsum(valid, out=cum[k + 1:k + 1 + n])
-    cum[k + 1 + n:] = cum[k + n]
-    count = cum[2 * k + 1:] - cum[:n]
-    # windows that reach past their profile's top or bottom (k levels at each end): clip
+    cut = np.zeros(n, dtype=bool)
+    bad = np.flatnonzero(~valid)
     top, bottom = _edge_levels(batch)
-    end = bottom + 1
-    step = np.arange(k, dtype=np.int64)
-    rows = np.concatenate([top[:, None] + step, bottom[:, None] - step]).ravel()
-    first = np.tile(top, 2)[:, None].repeat(k, axis=1).ravel()
-    stop = np.tile(end, 2)[:, None].repeat(k, axis=1).ravel()
-    keep = (rows >= first) & (rows < stop)
-    rows, first, stop = rows[keep], first[keep], stop[keep]
-    count[rows] = (cum[np.minimum(rows + k + 1, stop) + k]
-                   - cum[np.maximum(rows - k, first) + k])
-    return count
+    for d in range(-k, k + 1):  # the window's slots, not the levels
+        near = bad + d
+        cut[near[(near >= 0) & (near < n)]] = True
+        if d >= 0:
+            cut[(top + d)[top + d <= bottom]] = True
+            cut[(bottom - d)[bottom - d >= top]] = True
+    return np.flatnonzero(cut)
+
+
+def _sort_columns(a: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Sort each column of `a` (no NaN) in place with a sorting network over its rows."""
+    for i, j in sorting_network(a.shape[0]):
+        lo = np.minimum(a[i], a[j])
+        np.maximum(a[i], a[j], out=a[j])
+        a[i] = lo
+    return a
 
 
 _NETWORK_MAX = 31
@@ -700,11 +713,11 @@ def _pair_median_mad(padded: NDArray[np.float64], n: int, k: int
     return med[:n], mad[:n]
 
 
-def _middle(sorted_rows: NDArray[np.float64], count: NDArray[np.int64]) -> NDArray[np.float64]:
-    rows = np.arange(sorted_rows.shape[0])
+def _middle(sorted_cols: NDArray[np.float64], count: NDArray[np.int64]) -> NDArray[np.float64]:
+    """Median of the first `count` values of each sorted column (NaN for none)."""
+    cols = np.arange(sorted_cols.shape[1])
     lo = np.maximum((count - 1) // 2, 0)
-    hi = np.maximum(count // 2, 0)
-    hi = np.minimum(hi, sorted_rows.shape[1] - 1)
-    out = (sorted_rows[rows, lo] + sorted_rows[rows, hi]) / 2
+    hi = np.minimum(np.maximum(count // 2, 0), sorted_cols.shape[0] - 1)
+    out = (sorted_cols[lo, cols] + sorted_cols[hi, cols]) / 2
     out[count == 0] = np.nan
     return out
