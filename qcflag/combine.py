@@ -61,6 +61,7 @@ __all__ = [
     "expected_cost",
     "explain",
     "fit_fusion",
+    "forced_grades",
     "fuse",
     "reliability_curve",
     "rules_confidence",
@@ -717,6 +718,27 @@ def _model_reasons(
     return out
 
 
+def forced_grades(checks: CheckTable, variable: str) -> NDArray[np.int8]:
+    """Grade the :data:`FORCING` checks impose on each level (3 or 4), 0 where none does.
+
+    Parameters
+    ----------
+    checks : CheckTable
+        Rule results on the batch.
+    variable : str
+        Variable judged.
+
+    Returns
+    -------
+    ndarray of int8, shape (n_levels,)
+    """
+    out = np.zeros(checks.n_levels, dtype=np.int8)
+    for (name, v), r in checks.results.items():
+        if v == variable and name in FORCING:
+            np.maximum(out, np.where(r.grade >= 3, r.grade, 0).astype(np.int8), out=out)
+    return out
+
+
 def combine(
     checks: CheckTable,
     variable: str,
@@ -765,10 +787,7 @@ def combine(
     """
     n = checks.n_levels
     rule_grade = checks.verdict(variable)
-    forced_grade = np.zeros(n, dtype=np.int8)
-    for (name, v), r in checks.results.items():
-        if v == variable and name in FORCING:
-            np.maximum(forced_grade, np.where(r.grade >= 3, r.grade, 0), out=forced_grade)
+    forced_grade = forced_grades(checks, variable)
     forced = forced_grade >= 3
     names, mask = checks.fired_mask(variable)
 
