@@ -387,7 +387,7 @@ def profile_reduce(batch: ProfileBatch, values: NDArray[np.float64],
         if k not in ("min", "max"):
             raise ValueError(f"profile_reduce: unknown kind {k!r}")
         if masked is None:
-            masked = np.where(valid, values, np.nan)
+            masked = values if valid.all() else np.where(valid, values, np.nan)
         res = np.full(batch.n_profiles, np.nan)
         if nonempty.size:  # fmin/fmax skip the NaN of invalid levels
             res[nonempty] = (np.fmin if k == "min" else np.fmax).reduceat(masked, starts)
@@ -674,27 +674,32 @@ def _pair_median_mad(padded: NDArray[np.float64], n: int, k: int
     med = np.empty(2 * n_pairs)
     mad = np.empty(2 * n_pairs)
     net = sorting_network(2 * k)
+    # padded[2q + r] is halves[r % 2][q + r // 2]: every column below is a contiguous slice
+    halves = (padded[0::2].copy(), padded[1::2].copy())
     size = min(_PAIR_BLOCK, n_pairs)
-    core = [np.empty(size) for _ in range(2 * k)]
+    pool = [np.empty(size) for _ in range(2 * k + 1)]  # buffers for the sorted values
     t = [np.empty(size) for _ in range(w)]
-    x, spare, d1, d2, scale = (np.empty(size) for _ in range(5))
+    d0, d1, d2 = (np.empty(size) for _ in range(3))
     for q0 in range(0, n_pairs, size):
         q1 = min(q0 + size, n_pairs)
         m = q1 - q0
-        s = [c[:m] for c in core]
-        for j in range(2 * k):
-            np.copyto(s[j], padded[2 * q0 + 1 + j:2 * q1 + 1 + j:2])
-        tmp = spare[:m]
-        for i, j in net:  # sort the shared values in place
-            np.minimum(s[i], s[j], out=tmp)
-            np.maximum(s[i], s[j], out=s[j])
-            s[i], tmp = tmp, s[i]
-            core[i], spare = spare, core[i]  # the same swap on the whole buffers
+        # the shared values padded[2q + 1 + j], read in place until a comparator writes them
+        s = [halves[(1 + j) % 2][q0 + (1 + j) // 2:q1 + (1 + j) // 2] for j in range(2 * k)]
+        owned = [False] * (2 * k)
+        free = [c[:m] for c in pool]
+        for i, j in net:  # sort the shared values
+            lo = free.pop()
+            hi = s[j] if owned[j] else free.pop()
+            np.minimum(s[i], s[j], out=lo)
+            np.maximum(s[i], s[j], out=hi)
+            if owned[i]:
+                free.append(s[i])
+            s[i], s[j] = lo, hi
+            owned[i] = owned[j] = True
         tt = [c[:m] for c in t]
-        xx, e1, e2, md = x[:m], d1[:m], d2[:m], scale[:m]
-        for parity, start in ((0, 2 * q0), (1, 2 * q0 + w)):
-            np.copyto(xx, padded[start:start + 2 * m:2])
-            np.minimum(s[0], xx, out=tt[0])  # insert x: sorted window t
+        e1, e2, md = d1[:m], d2[:m], d0[:m]
+        for parity, xx in ((0, halves[0][q0:q1]), (1, halves[1][q0 + k:q1 + k])):
+            np.minimum(s[0], xx, out=tt[0])  # insert the window's own value x: sorted t
             for a in range(1, 2 * k):
                 np.maximum(s[a - 1], xx, out=tt[a])
                 np.minimum(tt[a], s[a], out=tt[a])

@@ -110,7 +110,8 @@ def _edge_distance(batch: ProfileBatch, variable: str, kind: str) -> NDArray[np.
     stat = broadcast_profiles(batch, profile_reduce(batch, p, ok, kind))
     np.subtract(p, stat, out=stat)  # |p - edge|
     np.abs(stat, out=stat)
-    stat[~ok] = np.nan
+    if not ok.all():
+        stat[~ok] = np.nan
     return stat
 
 
