@@ -125,8 +125,14 @@ def test_interrupted_write_leaves_nothing(archive, tmp_path, monkeypatch, interr
         Path(path).write_bytes(b"\x89HDF\r\n\x1a\n partial")
         raise interrupt()
 
+    def half_then_die_direct(path, *a, **k):  # the writer that bypasses xarray
+        half_then_die_nc(None, path)
+
+    from qcflag.io import netcdf
+
     monkeypatch.setattr(pd.DataFrame, "to_csv", half_then_die_csv)
     monkeypatch.setattr(xr.Dataset, "to_netcdf", half_then_die_nc)
+    monkeypatch.setattr(netcdf, "_write_direct", half_then_die_direct)
     src = sorted(archive.glob("*.csv"))[0]
     out = tmp_path / "out"
     out.mkdir()
