@@ -20,6 +20,7 @@ from qcflag.checks import robust_z, second_difference
 from qcflag.checks._ragged import (
     gather,
     moving_median_mad,
+    neighbour_map,
     next_valid_index,
     next_values,
     prev_valid_index,
@@ -113,6 +114,26 @@ def test_prev_next_valid_index_against_definition(share):
     v = batch.temperature
     assert np.array_equal(prev_values(batch, v, valid), gather(v, prev), equal_nan=True)
     assert np.array_equal(next_values(batch, v, valid), gather(v, nxt), equal_nan=True)
+
+
+@pytest.mark.parametrize("block", [1, 4, 32768])
+def test_neighbour_map_sees_every_level_with_its_neighbours(block, monkeypatch):
+    # blocks of adjacent levels, then the profile ends and gap neighbours redone
+    import qcflag.checks._ragged as ragged
+
+    monkeypatch.setattr(ragged, "_LEVEL_BLOCK", block)
+    rng = np.random.default_rng(6)
+    batch = _random_batch(rng)
+    v = batch.temperature
+    valid = rng.random(v.size) < 0.7
+    got1, got3 = np.full(v.size, -1.0), np.full(v.size, -1.0)
+
+    def record(levels, v1, v3):
+        got1[levels], got3[levels] = v1, v3
+
+    neighbour_map(batch, v, valid, record)
+    assert np.array_equal(got1, gather(v, prev_valid_index(batch, valid)), equal_nan=True)
+    assert np.array_equal(got3, gather(v, next_valid_index(batch, valid)), equal_nan=True)
 
 
 def test_profile_levels_and_reductions_against_definition():

@@ -9,6 +9,7 @@ boundaries, "previous valid level" is an index forward-fill with
 from __future__ import annotations
 
 import weakref
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -27,6 +28,7 @@ __all__ = [
     "grade_levels",
     "inside_polygon",
     "moving_median_mad",
+    "neighbour_map",
     "next_valid_index",
     "next_values",
     "prev_valid_index",
@@ -173,6 +175,72 @@ def next_values(batch: ProfileBatch, values: NDArray[np.float64], valid: NDArray
     at, src = _next_fixes(batch, valid)
     out[at] = _take(values, src)
     return out
+
+
+_LEVEL_BLOCK = 32768
+"""Levels per block of :func:`neighbour_map` (its temporaries stay in the CPU cache)."""
+
+
+def neighbour_map(batch: ProfileBatch, values: NDArray[np.float64], valid: NDArray[np.bool_],
+                  func: Callable[[slice | NDArray[np.int64], NDArray[np.float64],
+                                  NDArray[np.float64]], None],
+                  *, before: bool = True, after: bool = True) -> None:
+    """Call ``func(levels, v1, v3)`` so that it sees every level once with its neighbours.
+
+    ``v1`` and ``v3`` are the values of the nearest valid level above and below each of
+    ``levels`` in its profile (NaN where there is none; :func:`prev_values`,
+    :func:`next_values`). `func` computes its results for ``levels`` elementwise and stores
+    them at ``levels`` in its own output arrays; it must not write to ``v1`` or ``v3``.
+
+    The levels are visited in cache-sized blocks (``levels`` a slice) with the adjacent
+    levels as neighbours, read in place; afterwards the few levels whose neighbour is not
+    adjacent (profile ends, next to invalid levels) are visited again with their true
+    neighbours (``levels`` an index array), which overwrites what the first visit stored.
+    So no neighbour array is built and the temporaries of `func` stay in the cache.
+
+    Parameters
+    ----------
+    batch : ProfileBatch
+        The batch.
+    values : ndarray of float64, shape (n_levels,)
+        Level values.
+    valid : ndarray of bool, shape (n_levels,)
+        Which levels may serve as neighbours.
+    func : callable
+        ``func(levels, v1, v3) -> None``.
+    before, after : bool, default=True
+        Whether `func` uses ``v1`` / ``v3`` (the other is then NaN or junk).
+    """
+    n = values.size
+    if n == 0:
+        return
+    for start in range(1, n - 1, _LEVEL_BLOCK):  # interior levels, adjacent neighbours
+        stop = min(start + _LEVEL_BLOCK, n - 1)
+        func(slice(start, stop), values[start - 1:stop - 1], values[start + 1:stop + 1])
+    top, bottom = _edge_levels(batch)
+    parts = [np.array([0, n - 1], dtype=np.int64)]
+    fixes = []
+    if before:
+        at, src = _prev_fixes(batch, valid)
+        parts += [top, at]
+        fixes.append((at, src))
+    if after:
+        at, src = _next_fixes(batch, valid)
+        parts += [bottom, at]
+        fixes.append((at, src))
+    redo = np.unique(np.concatenate(parts))
+    near = []
+    for step, ends, use in ((-1, top, before), (1, bottom, after)):
+        v = np.full(redo.size, np.nan)
+        if use:
+            j = redo + step
+            inside = (j >= 0) & (j < n)
+            v[inside] = values[j[inside]]
+            v[np.isin(redo, ends, assume_unique=True)] = np.nan
+            at, src = fixes[0] if step < 0 else fixes[-1]
+            v[np.searchsorted(redo, at)] = _take(values, src)
+        near.append(v)
+    func(redo, near[0], near[1])
 
 
 def _take(values: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.float64]:

@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import grade_levels, prev_values, usable
+from qcflag.checks._ragged import grade_levels, neighbour_map, usable
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -57,8 +57,13 @@ def pressure_increasing(
     ok = usable(p, exclude)
     # Fast path: where every usable pressure exceeds the previous usable one, the running
     # maximum above a level is simply the previous usable pressure.
-    stat = prev_values(batch, p, ok)
-    np.subtract(stat, p, out=stat)  # previous usable pressure - pressure
+    stat = np.empty(p.size)
+
+    def blockwise(levels: slice | NDArray[np.int64], p1: NDArray[np.float64],
+                  _: NDArray[np.float64]) -> None:
+        stat[levels] = p1 - p[levels]  # previous usable pressure - pressure
+
+    neighbour_map(batch, p, ok, blockwise, after=False)
     fail = stat >= 0
     not_rising = np.flatnonzero(fail & ok)
     if not_rising.size:

@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import grade_levels, prev_values, usable
+from qcflag.checks._ragged import grade_levels, neighbour_map, usable
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -51,7 +51,15 @@ def digit_rollover(
         NaN at the first usable level of a profile.
     """
     v = batch.values(variable)
-    stat = prev_values(batch, v, usable(v, exclude))
-    np.subtract(v, stat, out=stat)
-    np.abs(stat, out=stat)
-    return CheckResult(stat, grade_levels(stat == stat, stat > limit))
+    stat = np.empty(v.size)
+    grade = np.empty(v.size, dtype=np.int8)
+
+    def blockwise(levels: slice | NDArray[np.int64], v1: NDArray[np.float64],
+                  _: NDArray[np.float64]) -> None:
+        st = np.subtract(v[levels], v1)
+        np.abs(st, out=st)
+        stat[levels] = st
+        grade[levels] = grade_levels(st == st, st > limit)
+
+    neighbour_map(batch, v, usable(v, exclude), blockwise, after=False)
+    return CheckResult(stat, grade)

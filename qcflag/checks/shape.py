@@ -9,8 +9,7 @@ import numpy as np
 from qcflag.checks._ragged import (
     broadcast_profiles,
     moving_median_mad,
-    next_values,
-    prev_values,
+    neighbour_map,
     profile_reduce,
     usable,
 )
@@ -95,10 +94,16 @@ def second_difference(
         ends. Grade 0.
     """
     v = batch.values(variable)
-    ok = usable(v, exclude)
-    stat = np.multiply(v, 2)  # V1 - 2 V2 + V3, evaluated left to right as written
-    np.subtract(prev_values(batch, v, ok), stat, out=stat)
-    stat += next_values(batch, v, ok)
+    stat = np.empty(v.size)
+
+    def blockwise(levels: slice | NDArray[np.int64], v1: NDArray[np.float64],
+                  v3: NDArray[np.float64]) -> None:
+        st = np.multiply(v[levels], 2)  # V1 - 2 V2 + V3, evaluated left to right as written
+        np.subtract(v1, st, out=st)
+        st += v3
+        stat[levels] = st
+
+    neighbour_map(batch, v, usable(v, exclude), blockwise)
     return _no_verdict(stat)
 
 

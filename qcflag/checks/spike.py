@@ -9,11 +9,19 @@ applies for PRES < breakpoint, the deep limit for PRES >= breakpoint.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import grade_levels, next_values, prev_values, shallower_than, usable
+from qcflag.checks._ragged import (
+    grade_levels,
+    neighbour_map,
+    next_values,
+    prev_values,
+    shallower_than,
+    usable,
+)
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -46,11 +54,53 @@ def neighbours(
     return prev_values(batch, values, ok), next_values(batch, values, ok)
 
 
-def _grade_by_pressure(batch: ProfileBatch, stat: NDArray[np.float64], shallow_limit: float,
-                       deep_limit: float, breakpoint: float) -> NDArray[np.int8]:
+def _by_pressure(batch: ProfileBatch, variable: str, exclude: NDArray[np.bool_] | None,
+                 shallow_limit: float, deep_limit: float, breakpoint: float,
+                 statistic: Callable[[NDArray[np.float64], NDArray[np.float64],
+                                      NDArray[np.float64]], NDArray[np.float64]]
+                 ) -> CheckResult:
+    """Evaluate ``statistic(V2, V1, V3)`` and grade it by the limit of the level's pressure.
+
+    Runs in cache-sized blocks of levels (see :func:`neighbour_map`).
+    """
+    v = batch.values(variable)
+    stat = np.empty(v.size)
+    grade = np.empty(v.size, dtype=np.int8)
     shallow, has_p = shallower_than(batch, breakpoint)
-    fails = np.where(shallow, stat > shallow_limit, stat > deep_limit)
-    return grade_levels(np.logical_and(stat == stat, has_p), fails)
+
+    def blockwise(levels: slice | NDArray[np.int64], v1: NDArray[np.float64],
+                  v3: NDArray[np.float64]) -> None:
+        st = statistic(v[levels], v1, v3)
+        fails = np.where(shallow[levels], st > shallow_limit, st > deep_limit)
+        stat[levels] = st
+        grade[levels] = grade_levels(np.logical_and(st == st, has_p[levels]), fails)
+
+    neighbour_map(batch, v, usable(v, exclude), blockwise)
+    return CheckResult(stat, grade)
+
+
+def _spike_value(v2: NDArray[np.float64], v1: NDArray[np.float64], v3: NDArray[np.float64]
+                 ) -> NDArray[np.float64]:
+    """``|V2 - (V3 + V1)/2| - |(V3 - V1)/2|`` (new array; the inputs are not modified)."""
+    stat = np.add(v3, v1)
+    stat /= 2
+    np.subtract(v2, stat, out=stat)
+    np.abs(stat, out=stat)
+    half = np.subtract(v3, v1)
+    half /= 2
+    np.abs(half, out=half)
+    stat -= half
+    return stat
+
+
+def _gradient_value(v2: NDArray[np.float64], v1: NDArray[np.float64], v3: NDArray[np.float64]
+                    ) -> NDArray[np.float64]:
+    """``|V2 - (V3 + V1)/2|`` (new array; the inputs are not modified)."""
+    stat = np.add(v3, v1)
+    stat /= 2
+    np.subtract(v2, stat, out=stat)
+    np.abs(stat, out=stat)
+    return stat
 
 
 def spike(
@@ -84,19 +134,8 @@ def spike(
         Statistic: the test value in the variable's units (a step gives 0: it is not a
         spike); NaN at the ends of a profile and where V2 is missing.
     """
-    v = batch.values(variable)
-    v1, v3 = neighbours(batch, v, exclude)
-    # |V2 - (V3 + V1)/2| - |(V3 - V1)/2|, in place in the neighbour arrays (same operations)
-    stat = np.add(v3, v1)
-    stat /= 2
-    np.subtract(v, stat, out=stat)
-    np.abs(stat, out=stat)
-    half = np.subtract(v3, v1, out=v3)
-    half /= 2
-    np.abs(half, out=half)
-    stat -= half
-    return CheckResult(stat, _grade_by_pressure(batch, stat, shallow_limit, deep_limit,
-                                                breakpoint))
+    return _by_pressure(batch, variable, exclude, shallow_limit, deep_limit, breakpoint,
+                        _spike_value)
 
 
 def gradient(
@@ -129,11 +168,5 @@ def gradient(
     CheckResult
         Statistic: the test value in the variable's units; NaN at the ends of a profile.
     """
-    v = batch.values(variable)
-    v1, v3 = neighbours(batch, v, exclude)
-    stat = np.add(v3, v1, out=v3)  # |V2 - (V3 + V1)/2|, in place (same operations)
-    stat /= 2
-    np.subtract(v, stat, out=stat)
-    np.abs(stat, out=stat)
-    return CheckResult(stat, _grade_by_pressure(batch, stat, shallow_limit, deep_limit,
-                                                breakpoint))
+    return _by_pressure(batch, variable, exclude, shallow_limit, deep_limit, breakpoint,
+                        _gradient_value)

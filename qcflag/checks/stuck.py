@@ -9,7 +9,7 @@ import numpy as np
 from qcflag.checks._ragged import (
     _prev_fixes,
     broadcast_profiles,
-    prev_values,
+    neighbour_map,
     profile_reduce,
     usable,
 )
@@ -113,10 +113,15 @@ def flat_line(
     """
     v = batch.values(variable)
     ok = usable(v, exclude)
-    diff = prev_values(batch, v, ok)  # previous usable value (NaN at a profile's first)
-    np.subtract(v, diff, out=diff)
-    np.abs(diff, out=diff)
-    same = diff <= eps
+    same = np.empty(v.size, dtype=bool)
+
+    def blockwise(levels: slice | NDArray[np.int64], v1: NDArray[np.float64],
+                  _: NDArray[np.float64]) -> None:
+        diff = np.subtract(v[levels], v1)  # v1: previous usable value (NaN at the first)
+        np.abs(diff, out=diff)
+        same[levels] = diff <= eps
+
+    neighbour_map(batch, v, ok, blockwise, after=False)
     same &= ok  # usable levels that continue the run of the usable level above them
     # every usable level is a run of 1 unless it is in a run with a continuing level
     stat = np.full(v.size, np.nan)
