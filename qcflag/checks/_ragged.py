@@ -37,6 +37,7 @@ __all__ = [
     "profile_reduce",
     "run_lengths",
     "shallower_than",
+    "sorted_unique",
     "sorting_network",
     "usable",
 ]
@@ -228,7 +229,7 @@ def neighbour_map(batch: ProfileBatch, values: NDArray[np.float64], valid: NDArr
         at, src = _next_fixes(batch, valid)
         parts += [bottom, at]
         fixes.append((at, src))
-    redo = np.unique(np.concatenate(parts))
+    redo = sorted_unique(np.concatenate(parts))
     near = []
     for step, ends, use in ((-1, top, before), (1, bottom, after)):
         v = np.full(redo.size, np.nan)
@@ -236,11 +237,29 @@ def neighbour_map(batch: ProfileBatch, values: NDArray[np.float64], valid: NDArr
             j = redo + step
             inside = (j >= 0) & (j < n)
             v[inside] = values[j[inside]]
-            v[np.isin(redo, ends, assume_unique=True)] = np.nan
+            v[np.searchsorted(redo, ends)] = np.nan  # every profile end is in redo
             at, src = fixes[0] if step < 0 else fixes[-1]
             v[np.searchsorted(redo, at)] = _take(values, src)
         near.append(v)
     func(redo, near[0], near[1])
+
+
+def sorted_unique(a: NDArray[np.int64]) -> NDArray[np.int64]:
+    """Sorted distinct values of a small integer array (np.unique without its overheads).
+
+    Parameters
+    ----------
+    a : ndarray of int64
+        Values.
+
+    Returns
+    -------
+    ndarray of int64
+    """
+    a = np.sort(a)
+    keep = np.ones(a.size, dtype=bool)
+    keep[1:] = a[1:] != a[:-1]
+    return a[keep]
 
 
 def _take(values: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.float64]:

@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from qcflag.checks._ragged import grade_levels, neighbour_map, usable
+from qcflag.checks._ragged import grade_levels, neighbour_map, sorted_unique, usable
 from qcflag.checks.base import CheckResult
 
 if TYPE_CHECKING:
@@ -67,7 +67,7 @@ def pressure_increasing(
     fail = stat >= 0
     not_rising = np.flatnonzero(fail & ok)
     if not_rising.size:
-        irregular = np.unique(np.searchsorted(batch.offsets, not_rising, side="right") - 1)
+        irregular = sorted_unique(np.searchsorted(batch.offsets, not_rising, side="right") - 1)
         lv, above = _running_max_before(batch, p, ok, irregular)
         stat[lv] = above - p[lv]
         np.greater_equal(stat, 0, out=fail)
