@@ -26,7 +26,9 @@ Indexed ragged arrays interleave profiles, so they are flagged as one block. The
 attributes of the new variables are found without touching the data, by flagging a tiny
 invented profile with the same rules and model.
 
-:func:`qcflag.pipeline.flag_batch` treats every profile on its own, so the blocks give
+Blocks never split a cruise (when the dataset has a per-profile cruise variable):
+:func:`qcflag.pipeline.flag_batch` treats every cruise on its own (a fix is compared with the
+rest of its platform's track, a cast with the cruise's other casts), so the blocks give
 exactly the flags a whole-dataset run gives.
 """
 
@@ -307,12 +309,14 @@ def _blocks(ds: xr.Dataset, layout: _Layout) -> list[dict[Hashable, slice]]:
     if layout.kind == "contiguous" and layout.count is not None:
         sample = layout.level_dims[0]
         n_obs = int(ds.sizes[sample])
-        counts = np.maximum(np.nan_to_num(np.asarray(ds[layout.count].values,
-                                                     dtype=np.float64)), 0).astype(np.int64)
+        raw_counts, cruises = _profile_values(ds, layout.count, _cruise_name(ds, layout))
+        counts = np.maximum(np.nan_to_num(np.asarray(raw_counts, dtype=np.float64)),
+                            0).astype(np.int64)
         offsets = np.concatenate([[0], np.cumsum(counts)])
         chunks = temp.chunks[0] if temp.chunks else (n_obs,)
         wanted = np.cumsum((0, *chunks))[:-1]
-        starts = np.unique(np.concatenate([[0], np.searchsorted(offsets, wanted, "left")]))
+        starts = np.searchsorted(offsets, wanted, "left")
+        starts = np.unique(np.concatenate([[0], _cruise_cuts(cruises, starts)]))
         starts = starts[starts < max(counts.size, 1)]
         ends = np.append(starts[1:], counts.size)
         out: list[dict[Hashable, slice]] = [
@@ -326,9 +330,46 @@ def _blocks(ds: xr.Dataset, layout: _Layout) -> list[dict[Hashable, slice]]:
         n = int(ds.sizes[layout.instance_dim])
         chunks = temp.chunks[axis] if temp.chunks else (n,)
         edges = np.cumsum((0, *chunks))
+        _, cruises = _profile_values(ds, None, _cruise_name(ds, layout))
+        edges = np.unique(np.concatenate([[0], _cruise_cuts(cruises, edges[1:-1]), [n]]))
         return [{layout.instance_dim: slice(int(a), int(b))}
                 for a, b in itertools.pairwise(edges)]
     return [{}]
+
+
+_CRUISE_NAMES = ("cruise", "cruise_id", "expocode", "cruise_name")
+
+
+def _cruise_name(ds: xr.Dataset, layout: _Layout) -> str | None:
+    """Return the per-profile cruise variable's name, None if the dataset has none."""
+    return next((v for v in _CRUISE_NAMES if v in ds.variables
+                 and ds[v].dims == (layout.instance_dim,)), None)
+
+
+def _profile_values(ds: xr.Dataset, *names: str | None) -> list[Any]:
+    """Values of small per-profile variables, lazy ones computed together in one pass."""
+    import dask
+
+    arrays = [None if n is None else ds[n].data for n in names]
+    return list(dask.compute(*arrays)) if any(
+        a is not None and not isinstance(a, np.ndarray) for a in arrays
+    ) else arrays
+
+
+def _cruise_cuts(cruises: Any, cuts: Any) -> np.ndarray:
+    """Move wanted block cuts (profile indices) forward so that no cruise is split.
+
+    Checks that compare a profile with its cruise (impossible speed along a track) and the
+    cruise-relative features then see, block by block, what they see in the whole dataset.
+    Without a per-profile cruise variable (`cruises` None) the cuts stay where they are.
+    """
+    cuts = np.asarray(cuts, dtype=np.int64)
+    if cruises is None or cuts.size == 0:
+        return cuts
+    from qcflag.profiles import whole_group_ends
+
+    ends = whole_group_ends(np.asarray(cruises).astype(str))
+    return ends[np.minimum(np.searchsorted(ends, cuts, "left"), ends.size - 1)]
 
 
 def _run(ds: xr.Dataset, kind: Kind, make: Callable[[ProfileBatch], dict[str, AddedColumn]],

@@ -23,7 +23,7 @@ from qcflag.schemes import NO_FLAG, decode, get_scheme
 if TYPE_CHECKING:
     from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["CANONICAL_UNITS", "LEVEL_VARIABLES", "META_COLUMNS", "ProfileBatch"]
+__all__ = ["CANONICAL_UNITS", "LEVEL_VARIABLES", "META_COLUMNS", "ProfileBatch", "whole_group_ends"]
 
 LEVEL_VARIABLES: tuple[str, ...] = ("pressure", "temperature", "salinity")
 """The measured variables of a level, in canonical order."""
@@ -53,6 +53,32 @@ def _as_float(name: str, values: ArrayLike, n: int | None = None) -> NDArray[np.
     if n is not None and arr.shape[0] != n:
         raise InvalidProfileError(f"{name}: length {arr.shape[0]} differs from {n} levels")
     return arr
+
+
+def whole_group_ends(groups: ArrayLike) -> NDArray[np.int64]:
+    """Where a sequence of profiles may be cut so that no group is split.
+
+    Parameters
+    ----------
+    groups : array-like, shape (n_profiles,)
+        Group label of each profile (e.g. its cruise); missing labels are groups of one.
+
+    Returns
+    -------
+    ndarray of int64
+        The cut positions ``k`` in ``1..n_profiles`` (profiles ``< k`` before the cut)
+        that leave every group on one side, increasing; always ends with ``n_profiles``.
+    """
+    codes, _ = pd.factorize(pd.Series(np.asarray(groups, dtype=object)).astype("string"),
+                            use_na_sentinel=True)
+    n = codes.size
+    if n == 0:
+        return np.zeros(0, dtype=np.int64)
+    codes = np.where(codes < 0, codes.max(initial=-1) + 1 + np.arange(n), codes)
+    last = np.zeros(int(codes.max()) + 1, dtype=np.int64)
+    np.maximum.at(last, codes, np.arange(n))
+    reach = np.maximum.accumulate(last[codes])  # last profile any open group still needs
+    return (np.flatnonzero(reach == np.arange(n)) + 1).astype(np.int64)
 
 
 @dataclass(frozen=True, eq=False)
@@ -292,13 +318,7 @@ class ProfileBatch:
         n = self.n_profiles
         allowed = np.arange(1, n + 1)  # chunk ends allowed after profile k - 1
         if keep_cruises and "cruise" in self.profiles.columns:
-            codes, _ = pd.factorize(self.profiles["cruise"].astype("string"),
-                                    use_na_sentinel=True)
-            codes = np.where(codes < 0, codes.max(initial=-1) + 1 + np.arange(n), codes)
-            last = np.zeros(int(codes.max()) + 1, dtype=np.int64)
-            np.maximum.at(last, codes, np.arange(n))
-            reach = np.maximum.accumulate(last[codes])  # last profile any open cruise needs
-            allowed = np.flatnonzero(reach == np.arange(n)) + 1
+            allowed = whole_group_ends(self.profiles["cruise"])
         ends_at = self.offsets[allowed]  # level offset of each allowed end
         targets = np.arange(max_levels, self.n_levels, max_levels)
         ends = np.unique(np.append(allowed[np.minimum(

@@ -31,7 +31,7 @@ FLAGS = ("temperature_flag_auto", "salinity_flag_auto")
 @pytest.fixture(scope="module")
 def batch():
     cfg = SimulationConfig(casts_per_cruise=5, floats_per_cruise=2, max_cast_pressure=700)
-    return simulate_archive(1, seed=5, config=cfg)
+    return simulate_archive(3, seed=5, config=cfg)  # three cruises: blocks keep each whole
 
 
 @pytest.fixture(scope="module")
@@ -161,9 +161,10 @@ def test_dask_contiguous_is_lazy_and_blockwise(contiguous, monkeypatch):
     with dask.config.set(scheduler="sync"), sched:
         out = flag_dataset(lazy_in, history=HISTORY)
         assert isinstance(out["temperature_flag_auto"].data, dask.array.Array)
-        # before .compute(): one small computation of the per-profile count (row_size,
-        # a single chunk) to find profile boundaries; no level block was read or flagged
-        assert sched.computes <= 1 and len(sched.keys) <= 2
+        # before .compute(): one small computation of the per-profile count (row_size)
+        # and cruise (one chunk each) to find profile and cruise boundaries; no level
+        # block was read or flagged
+        assert sched.computes <= 1 and len(sched.keys) <= 4
         assert seen_sizes == []
         before = len(sched.keys)
         done = out.compute()

@@ -141,11 +141,25 @@ def test_order_in_the_file_and_other_tracks_do_not_matter():
 
 def test_tracks_are_platforms_within_cruises():
     prof = pd.DataFrame({"cruise": ["c1", "c1", "c2", None, "c1", None],
-                         "platform": ["F9", "", "F9", None, "F9", "S1"]})
+                         "platform": ["F9", "", "F9", "S1", "F9", None]})
     codes = track_codes(prof)
     assert codes[0] == codes[4]  # same float, same cruise
-    assert len({codes[0], codes[1], codes[2], codes[5]}) == 4  # all different tracks
-    assert codes[3] == -1  # neither known: not on any track
+    assert len({codes[0], codes[2], codes[3]}) == 3  # other cruise / other platform
+    assert codes[1] == -1 and codes[5] == -1  # platform unknown: on no track
+    assert (track_codes(prof.drop(columns="platform")) == -1).all()
+
+
+def test_floats_surfacing_together_are_not_one_track():
+    # two floats of one cruise surface at the same instant far apart: fine when the
+    # platforms are known; without platform identifiers nothing is judged
+    step = _lon_for_speed(0.1, 10.0)
+    a = _track([0.0, step, 2 * step], [0, 10, 20], platform="F1")
+    c = _track([20.0, 20.0 + step, 20.0 + 2 * step], [0, 10, 20], platform="F2")
+    both = ProfileBatch.concat([a, c])
+    assert impossible_speed(both)["temperature"].grade.max() == 1
+    prof = both.profiles.assign(platform="")
+    anon = ProfileBatch(both.offsets, both.pressure, both.temperature, both.salinity, prof)
+    assert impossible_speed(anon)["temperature"].grade.max() == 0
 
 
 def test_unusable_fixes_are_skipped_and_not_judged():

@@ -62,10 +62,13 @@ def great_circle_distance(lat1: NDArray[np.float64], lon1: NDArray[np.float64],
 
 
 def track_codes(profiles: pd.DataFrame) -> NDArray[np.int64]:
-    """Integer track of every profile: one per (``cruise``, ``platform``) pair; -1 if neither.
+    """Integer track of every profile: one per (``cruise``, ``platform``) pair.
 
-    A platform's fixes are compared within one cruise only, so flagging each cruise on its
-    own (as chunked and parallel runs do) gives the same verdicts as flagging them together.
+    The platform must be known: a file without platform identifiers may mix ships and
+    floats (two floats surfacing at the same instant are not one platform moving
+    infinitely fast), so its profiles are on no track (-1). A platform's fixes are compared
+    within one cruise only, so flagging each cruise on its own (as chunked and parallel runs
+    do) gives the same verdicts as flagging them together.
 
     Parameters
     ----------
@@ -76,17 +79,14 @@ def track_codes(profiles: pd.DataFrame) -> NDArray[np.int64]:
     -------
     ndarray of int64, shape (n_profiles,)
     """
-    parts = []
-    for column in ("cruise", "platform"):
-        if column in profiles.columns:
-            raw = profiles[column].astype("string").str.strip()
-            parts.append(raw.mask(raw == ""))
-    if not parts:
-        return np.full(len(profiles), -1, dtype=np.int64)
-    known = pd.concat(parts, axis=1).notna().any(axis=1).to_numpy()
-    key = parts[0].fillna("")
-    for extra in parts[1:]:
-        key = key + "\x1f" + extra.fillna("")
+    n = len(profiles)
+    if "platform" not in profiles.columns:
+        return np.full(n, -1, dtype=np.int64)
+    platform = profiles["platform"].astype("string").str.strip()
+    known = (platform.notna() & (platform != "")).to_numpy(dtype=bool)
+    key = platform.fillna("")
+    if "cruise" in profiles.columns:
+        key = profiles["cruise"].astype("string").str.strip().fillna("") + "\x1f" + key
     codes, _ = pd.factorize(key.to_numpy(dtype=object))
     return np.where(known, codes, -1).astype(np.int64)
 
@@ -107,7 +107,7 @@ def impossible_speed(
 ) -> dict[str, CheckResult]:
     """Grade the profiles of a fix that needs an impossible speed (Argo test 5).
 
-    Tracks are the profiles of one ``platform`` within one ``cruise`` with a usable
+    Tracks are the profiles of one known ``platform`` within one ``cruise`` with a usable
     position (finite, within -90..90 and -180..180) and time, sorted by time. Profiles whose
     ``instrument`` is ``"float"`` use `float_max_speed`, all others `ship_max_speed`.
 
