@@ -54,6 +54,7 @@ __all__ = [
     "DEFAULT_COST",
     "FORCING",
     "DecisionError",
+    "DecisionWarning",
     "FusionParams",
     "choose_threshold",
     "combine",
@@ -123,6 +124,14 @@ fitted model weight to zero, leaving rules-only flags."""
 
 class DecisionError(QCFlagError, ValueError):
     """Invalid decision settings (caution, target recall, review budget, threshold)."""
+
+
+class DecisionWarning(UserWarning):
+    """A decision setting the model's validation data say will cost many false alarms."""
+
+
+COSTLY_SHARE = 0.05
+"""Warn when a target recall flags more than this share of the out-of-fold levels."""
 
 
 # ----------------------------------------------------------------------------- fusion
@@ -198,6 +207,14 @@ class FusionParams:
         _check_fraction(target_recall, "target recall")
         q = np.asarray(self.bad_quantiles)
         return float(np.interp(1.0 - target_recall, np.linspace(0, 1, q.size), q))
+
+    def flagged_share(self, threshold: float) -> float:
+        """Share of the out-of-fold levels whose calibrated ``P(grade >= 3)`` reaches it."""
+        if not self.all_quantiles:
+            return math.nan
+        q = np.asarray(self.all_quantiles)
+        below = np.searchsorted(q, threshold, side="left")  # quantile points under it
+        return float(1.0 - max(below - 1, 0) / (q.size - 1)) if below else 1.0
 
     def threshold_for_budget(self, review_budget: float) -> float:
         """Threshold on calibrated ``P(grade >= 3)`` flagging `review_budget` of the levels."""

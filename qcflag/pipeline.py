@@ -14,6 +14,7 @@ from __future__ import annotations
 import json
 import os
 import sys
+import warnings
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -22,7 +23,14 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from qcflag.combine import DecisionError, FusionParams, combine, explain
+from qcflag.combine import (
+    COSTLY_SHARE,
+    DecisionError,
+    DecisionWarning,
+    FusionParams,
+    combine,
+    explain,
+)
 from qcflag.exceptions import QCFlagError
 from qcflag.result import FlagResult, VariableFlags
 from qcflag.schemes import get_scheme, profile_quality
@@ -110,7 +118,15 @@ def _decision_threshold(
             "review budget cannot be met; refit the model or use --caution"
         )
     if target_recall is not None:
-        return fusion.threshold_for_recall(target_recall)
+        threshold = fusion.threshold_for_recall(target_recall)
+        share = fusion.flagged_share(threshold)
+        if share > COSTLY_SHARE:
+            warnings.warn(DecisionWarning(
+                f"{variable}: a target recall of {target_recall:g} needs P(probably bad or "
+                f"bad) >= {threshold:.3g}, which flagged {share:.0%} of the training levels "
+                "out of fold (some manually flagged levels look good to the model); review "
+                "the flags, or use a lower target or --caution"), stacklevel=3)
+        return threshold
     assert review_budget is not None
     return fusion.threshold_for_budget(review_budget)
 

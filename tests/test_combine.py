@@ -309,3 +309,26 @@ def test_target_recall_quantiles_discount_the_operators_false_flags():
     eps0, q0 = _denoised_bad_quantiles(bad, good, qs)
     assert eps0 < 0.01
     assert float(np.interp(0.05, qs, q0)) == pytest.approx(np.quantile(bad, 0.05), abs=0.01)
+
+
+def test_costly_target_recall_warns_with_the_share_it_flags():
+    import warnings
+
+    from qcflag.combine import DecisionWarning
+    from qcflag.pipeline import _decision_threshold
+
+    qs = np.linspace(0, 1, 1001)
+    fp = FusionParams(variable=VAR,
+                      # bad levels: 10 % of them look like good ones (p = 0.01)
+                      bad_quantiles=list(np.where(qs < 0.1, 0.01, 0.9)),
+                      # all levels: 97 % spread over 0 .. 0.02, the rest high
+                      all_quantiles=list(np.where(qs < 0.97, 0.02 * qs, 0.9)))
+    assert fp.flagged_share(0.9) == pytest.approx(0.03, abs=0.002)
+    assert fp.flagged_share(0.01) == pytest.approx(0.5, abs=0.002)
+    with pytest.warns(DecisionWarning, match=r"temperature: a target recall of 0.95 needs .* "
+                                             r"which flagged 50% of the training levels"):
+        t = _decision_threshold(fp, VAR, 0.95, None)
+    assert t == pytest.approx(0.01)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert _decision_threshold(fp, VAR, 0.85, None) == pytest.approx(0.9)  # no warning
