@@ -112,6 +112,24 @@ decrease with ``k``, so the three tests never contradict each other.
 _VERDICT_ROW = np.array([0, 1, 1, 2, 3], dtype=np.int64)
 _N_VERDICTS = 4
 _EPS = 1e-6
+
+RULE_PRIOR = np.array(
+    [
+        [0.0, 0.0, 0.0, 0.0],  # n/a: no prior (its ratios are set to 0 anyway)
+        [0.998, 0.99, 0.6, 0.6],  # pass
+        [0.001, 0.005, 0.3, 0.1],  # verdict 3
+        [0.001, 0.005, 0.1, 0.3],  # verdict 4
+    ]
+)
+"""Prior ``P(verdict | grade)`` of a rule (rows n/a, pass, 3, 4; columns grades 1-4).
+
+qcflag's choice, not a published value: a published check rarely fires on good water and
+fires on a good share of the faults it is meant for, with its own grade more often than the
+other. It matters only for checks with little evidence in the training archive (a fault
+kind absent from it); with many levels the counts dominate."""
+
+RULE_PRIOR_LEVELS = 20.0
+"""Strength of :data:`RULE_PRIOR` in pseudo-levels per grade."""
 MODEL_MIX = 0.05
 """Share of a uniform distribution mixed into the model's probabilities before the pool.
 
@@ -395,14 +413,20 @@ def fit_fusion(
     pk = p[idx]
     pk = np.clip(pk, 0, 1) / np.maximum(np.clip(pk, 0, 1).sum(axis=1, keepdims=True), 1e-300)
 
-    # Laplace-smoothed likelihood ratio tables log P(v | g) / P(v)
+    # likelihood ratio tables log P(v | g) / P(v): counts, Laplace smoothing, and a prior of
+    # RULE_PRIOR_LEVELS pseudo-levels per grade that takes the published rule at its word
     llr = np.zeros((len(names), _N_VERDICTS, 4))
     n_g = np.bincount(yk, minlength=4).astype(float)
+    prior = RULE_PRIOR_LEVELS * RULE_PRIOR
+    fired = np.zeros(len(names), dtype=bool)
     for j in range(len(names)):
         cnt = np.zeros((_N_VERDICTS, 4))
         np.add.at(cnt, (rows_all[:, j], yk), 1.0)
-        p_v_g = (cnt + 1.0) / (n_g + _N_VERDICTS)[None, :]
-        p_v = (cnt.sum(axis=1) + 1.0) / (cnt.sum() + _N_VERDICTS)
+        fired[j] = cnt[2:].sum() > 0
+        cnt += 1.0 + prior
+        p_v_g = cnt / cnt.sum(axis=0, keepdims=True)
+        # P(v) under the training grade mix, so that a verdict's ratios average to ~0
+        p_v = p_v_g @ (n_g + 1.0) / (n_g + 1.0).sum()
         llr[j] = np.log(p_v_g) - np.log(p_v)[:, None]
     # a check that did not apply (verdict n/a: missing value, level out of its range) is
     # no evidence either way; only its pass/fail verdicts carry information
@@ -440,7 +464,11 @@ def fit_fusion(
     n_par = z.shape[2]
     theta0 = np.zeros(n_par)
     theta0[0] = 1.0
-    bounds = [(0.0, None)] * (1 + len(names)) + [(None, None)] * 3
+    # a check that never fired here cannot be weighed from these data: it keeps weight 1
+    # and its prior likelihood ratios (the published rule taken at its word)
+    theta0[1:1 + len(names)] = np.where(fired, 0.0, 1.0)
+    bounds = ([(0.0, None)] + [(0.0, None) if f else (1.0, 1.0) for f in fired]
+              + [(None, None)] * 3)
     res = minimize(nll, theta0, jac=True, method="L-BFGS-B", bounds=bounds)
     theta = res.x
     fusion = FusionParams(

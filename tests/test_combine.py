@@ -332,3 +332,26 @@ def test_costly_target_recall_warns_with_the_share_it_flags():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         assert _decision_threshold(fp, VAR, 0.85, None) == pytest.approx(0.9)  # no warning
+
+
+def test_a_check_that_never_fired_in_training_is_taken_at_its_word():
+    # generated scenario: the training archive never shows a density inversion, so the
+    # fusion cannot weigh that check from data; where it fires later, the flag follows the
+    # published rule even though the model (never having seen one) says good
+    y, proba, checks = _synthetic_oof(20_000, 6)
+    never = np.ones(y.size, dtype=np.int8)
+    tables = dict(checks.results)
+    tables[("density_inversion", VAR)] = CheckResult(np.zeros(y.size), never)
+    fusion = fit_fusion(y, proba, CheckTable(tables, y.size), VAR)
+    assert fusion.rules["density_inversion"]["weight"] == 1.0
+    assert 0.0 <= fusion.rules["flat_line"]["weight"] < 1.0  # fired, weighed by the data
+    llr = np.array(fusion.rules["density_inversion"]["llr"])
+    assert llr[3, 3] - llr[3, 0] > 5.0  # a fail verdict: strong evidence for grade 4
+    assert abs(llr[1]).max() < 0.05  # a pass verdict: next to none
+    good_model = np.tile([0.97, 0.01, 0.01, 0.01], (3, 1))
+    verdict = np.array([1, 4, 4], dtype=np.int8)
+    later = CheckTable({("spike", VAR): CheckResult(np.zeros(3), np.ones(3, np.int8)),
+                        ("flat_line", VAR): CheckResult(np.zeros(3), np.ones(3, np.int8)),
+                        ("density_inversion", VAR): CheckResult(np.zeros(3), verdict)}, 3)
+    grade = combine(later, VAR, good_model, fusion=fusion).grade
+    assert grade[0] <= 2 and (grade[1:] >= 3).all()
