@@ -6,9 +6,10 @@ not the file), writes its output atomically and returns only a small summary. Th
 never holds level data: it submits a bounded number of tasks at a time and gathers their
 summaries, so an archive far larger than memory streams through in constant space.
 
-Because flagging a subset of profiles gives the same flags as flagging them with the rest
-(:func:`qcflag.pipeline.flag_batch` is a pure per-profile function), the chunk size and
-the number of workers do not change a single byte of the output: ``--workers 2`` writes
+Because flagging a set of whole cruises gives the same flags as flagging them with the rest
+(:func:`qcflag.pipeline.flag_batch` compares a profile only with its own cruise, and chunks
+never split a cruise), the chunk size and the number of workers do not change a single
+byte of the output: ``--workers 2`` writes
 the same files as ``--workers 1`` and as the single-process :func:`qcflag.pipeline.flag_files`
 given the same history line.
 
