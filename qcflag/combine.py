@@ -712,23 +712,30 @@ def rules_confidence(checks: CheckTable, variable: str, grade: ArrayLike) -> NDA
     succession). Forced grades get 1 in :func:`combine`.
     """
     g = np.asarray(grade)
-    n_fired = np.zeros(checks.n_levels)
-    n_pass = np.zeros(checks.n_levels)
+    n_fired = np.zeros(checks.n_levels, dtype=np.int16)
+    n_pass = np.zeros(checks.n_levels, dtype=np.int16)
     for (_, v), r in checks.results.items():
         if v == variable:
             n_fired += r.grade >= 3
-            n_pass += (r.grade == 1) | (r.grade == 2)
-    return np.where(g >= 3, 1.0 - 0.5 ** np.maximum(n_fired, 1), (n_pass + 1) / (n_pass + 2))
+            n_pass += (r.grade >= 1) & (r.grade <= 2)
+    conf = (n_pass + 1.0) / (n_pass + 2.0)
+    bad = np.flatnonzero(g >= 3)
+    conf[bad] = 1.0 - 0.5 ** np.maximum(n_fired[bad], 1).astype(np.float64)
+    return conf
 
 
 def _mask_strings(names: Sequence[str], mask: NDArray[np.int64]) -> NDArray[np.object_]:
     """Join the names of each bit mask with ``;`` (once per distinct mask)."""
-    uniq, inv = np.unique(mask, return_inverse=True)
-    strs = np.array(
-        [";".join(n for i, n in enumerate(names) if (int(u) >> i) & 1) for u in uniq],
-        dtype=object,
-    )
-    return strs[inv]
+    out = np.full(mask.size, "", dtype=object)
+    hit = np.flatnonzero(mask)  # few levels fire anything: join only theirs
+    if hit.size:
+        uniq, inv = np.unique(mask[hit], return_inverse=True)
+        strs = np.array(
+            [";".join(n for i, n in enumerate(names) if (int(u) >> i) & 1) for u in uniq],
+            dtype=object,
+        )
+        out[hit] = strs[inv]
+    return out
 
 
 def _model_reasons(

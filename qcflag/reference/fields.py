@@ -410,14 +410,23 @@ def climatology_at(
     # snap to a standard depth within a micrometre, so float rounding of the pressure-depth
     # conversion cannot lose the deepest valid level to its missing neighbour
     w = np.where(w * dz < 1e-6, 0.0, np.where((1.0 - w) * dz < 1e-6, 1.0, w))
-    upper = cols[idx, :, k]  # (n_levels, n_fields)
-    lower = cols[idx, :, k + 1]
-    wcol = w[:, None]
-    val = np.where(wcol == 0.0, upper,
-                   np.where(wcol == 1.0, lower, upper + wcol * (lower - upper)))
-    val[~inside] = np.nan
-    return ClimatologyAtLevels(*(np.ascontiguousarray(val[:, f]) for f in range(len(_FIELDS))),
-                               depth=depth)
+    row = idx * zstd.size + k  # standard depth k of the level's column, per field below
+    at_upper = np.flatnonzero(w == 0.0)
+    at_lower = np.flatnonzero(w == 1.0)
+    outside = np.flatnonzero(~inside)
+    fields = []
+    for f in range(len(_FIELDS)):
+        col = np.ascontiguousarray(cols[:, f, :]).ravel()  # (n_pos * n_depth,), small
+        upper = col[row]
+        lower = col[row + 1]
+        val = lower - upper
+        val *= w
+        val += upper
+        val[at_upper] = upper[at_upper]  # exactly the standard-depth value (also where the
+        val[at_lower] = lower[at_lower]  # other neighbour is missing)
+        val[outside] = np.nan
+        fields.append(val)
+    return ClimatologyAtLevels(*fields, depth=depth)
 
 
 def climatology_for(batch: ProfileBatch) -> ClimatologyAtLevels:
