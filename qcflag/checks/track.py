@@ -82,13 +82,20 @@ def track_codes(profiles: pd.DataFrame) -> NDArray[np.int64]:
     n = len(profiles)
     if "platform" not in profiles.columns:
         return np.full(n, -1, dtype=np.int64)
-    platform = profiles["platform"].astype("string").str.strip()
-    known = (platform.notna() & (platform != "")).to_numpy(dtype=bool)
-    key = platform.fillna("")
+    platform, unknown = _text(profiles["platform"])
+    key = platform
     if "cruise" in profiles.columns:
-        key = profiles["cruise"].astype("string").str.strip().fillna("") + "\x1f" + key
-    codes, _ = pd.factorize(key.to_numpy(dtype=object))
-    return np.where(known, codes, -1).astype(np.int64)
+        key = np.char.add(np.char.add(_text(profiles["cruise"])[0], "\x1f"), platform)
+    _, codes = np.unique(key, return_inverse=True)
+    return np.where(unknown, -1, codes).astype(np.int64)
+
+
+def _text(column: pd.Series) -> tuple[NDArray[np.str_], NDArray[np.bool_]]:
+    """Return the stripped text of a metadata column and where it is missing or empty."""
+    raw = column.to_numpy(dtype=object)
+    missing = pd.isna(raw)
+    txt = np.char.strip(np.where(missing, "", raw).astype(str))
+    return txt, missing | (txt == "")
 
 
 def _speed(d: NDArray[np.float64], dt: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -152,9 +159,8 @@ def impossible_speed(
     ok = (np.isfinite(lat) & np.isfinite(lon) & (np.abs(lat) <= 90) & (np.abs(lon) <= 180)
           & ~np.isnat(t) & (track >= 0))
     if "instrument" in prof.columns:
-        is_float = (prof["instrument"].astype("string").str.strip().str.lower() == "float")
-        limit_all = np.where(is_float.fillna(False).to_numpy(dtype=bool), float_max_speed,
-                             ship_max_speed)
+        is_float = np.char.lower(_text(prof["instrument"])[0]) == "float"
+        limit_all = np.where(is_float, float_max_speed, ship_max_speed)
     else:
         limit_all = np.full(n, float(ship_max_speed))
 
