@@ -445,7 +445,7 @@ def flag_dataset(
         Command or complete line appended to the global ``history``.
     **options
         Passed to :func:`qcflag.pipeline.flag_batch` (``caution``, ``target_recall``,
-        ``review_budget``).
+        ``review_budget``, ``false_alarm_rate``).
 
     Returns
     -------

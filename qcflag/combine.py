@@ -181,6 +181,9 @@ class FusionParams:
         good ones (operators' false flags); 0 where not estimated.
     all_quantiles : list of float
         The same quantiles over all out-of-fold levels (for a review budget).
+    pass_quantiles : list of float
+        The same quantiles over the out-of-fold levels the operators passed (manual grade
+        1 or 2), standing in for the good levels (for a false-alarm rate).
     n_levels : int
         Number of levels the parameters were fitted on.
     """
@@ -195,6 +198,7 @@ class FusionParams:
     all_quantiles: list[float] = field(default_factory=list)
     n_levels: int = 0
     manual_bad_noise: float = 0.0
+    pass_quantiles: list[float] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         """Plain-JSON form (lists and floats only)."""
@@ -225,6 +229,23 @@ class FusionParams:
         _check_fraction(target_recall, "target recall")
         q = np.asarray(self.bad_quantiles)
         return float(np.interp(1.0 - target_recall, np.linspace(0, 1, q.size), q))
+
+    def threshold_for_false_alarms(self, rate: float) -> float:
+        """Threshold on calibrated ``P(grade >= 3)`` flagging about `rate` of good levels.
+
+        The smallest value above the ``1 - rate`` quantile over the out-of-fold levels the
+        operators passed (Neyman-Pearson: the most detections for that false-alarm rate).
+        Levels the operators missed push the quantile up, so the rate errs low.
+        """
+        if not self.pass_quantiles:
+            raise DecisionError("the model holds no validation data for a false-alarm rate; "
+                                "refit it or use --caution")
+        _check_fraction(rate, "false-alarm rate")
+        if rate <= 0:
+            return math.inf
+        q = np.asarray(self.pass_quantiles)
+        at = float(np.interp(1.0 - rate, np.linspace(0, 1, q.size), q))
+        return float(np.nextafter(at, math.inf))  # strictly above: ties at `at` pass
 
     def flagged_share(self, threshold: float) -> float:
         """Share of the out-of-fold levels whose calibrated ``P(grade >= 3)`` reaches it."""
@@ -493,6 +514,8 @@ def fit_fusion(
         fusion.manual_bad_noise, fusion.bad_quantiles = _denoised_bad_quantiles(
             p_bad[y_bad], p_bad[~y_bad], qs)
     fusion.all_quantiles = [float(v) for v in np.quantile(p_bad, qs)]
+    if (~y_bad).any():
+        fusion.pass_quantiles = [float(v) for v in np.quantile(p_bad[~y_bad], qs)]
     return fusion
 
 

@@ -109,8 +109,9 @@ def _decision_threshold(
     variable: str,
     target_recall: float | None,
     review_budget: float | None,
+    false_alarm_rate: float | None = None,
 ) -> float | None:
-    if target_recall is None and review_budget is None:
+    if target_recall is None and review_budget is None and false_alarm_rate is None:
         return None
     if fusion is None:
         raise DecisionError(
@@ -127,6 +128,8 @@ def _decision_threshold(
                 "out of fold (some manually flagged levels look good to the model); review "
                 "the flags, or use a lower target or --caution"), stacklevel=3)
         return threshold
+    if false_alarm_rate is not None:
+        return fusion.threshold_for_false_alarms(false_alarm_rate)
     assert review_budget is not None
     return fusion.threshold_for_budget(review_budget)
 
@@ -173,6 +176,7 @@ def flag_batch(
     caution: float = 0.0,
     target_recall: float | None = None,
     review_budget: float | None = None,
+    false_alarm_rate: float | None = None,
     scheme: str = "argo",
 ) -> FlagResult:
     """Flag every level of a batch.
@@ -196,6 +200,11 @@ def flag_batch(
         Flag probably bad or bad the share of levels whose ``P(grade >= 3)`` is in the top
         `review_budget` on the model's cross-validation folds (a fixed threshold, so each
         profile is still flagged on its own).
+    false_alarm_rate : float, optional
+        Flag probably bad or bad where ``P(grade >= 3)`` exceeds what this share of the
+        levels the operators passed reached on the model's cross-validation folds: about
+        this share of good levels gets flagged, and as many bad ones as the model can rank
+        above them.
     scheme : str, default="argo"
         Output flag scheme (recorded in the result).
 
@@ -206,17 +215,20 @@ def flag_batch(
     Raises
     ------
     DecisionError
-        If more than one of `caution`, `target_recall`, `review_budget` is set, or a
-        threshold is asked for without a calibrated model.
+        If more than one of `caution`, `target_recall`, `review_budget`,
+        `false_alarm_rate` is set, or a threshold is asked for without a calibrated model.
     """
     from qcflag.rules import run_checks
 
     get_scheme(scheme)  # validates the name
-    n_set = sum([bool(caution), target_recall is not None, review_budget is not None])
+    thresholds = [target_recall, review_budget, false_alarm_rate]
+    n_set = sum([bool(caution), *(t is not None for t in thresholds)])
     if n_set > 1:
-        raise DecisionError("give only one of --caution, --target-recall and --review-budget")
-    if model is None and (target_recall is not None or review_budget is not None):
-        raise DecisionError("--target-recall and --review-budget need a model; pass --model")
+        raise DecisionError("give only one of --caution, --target-recall, --review-budget and "
+                            "--false-alarm-rate")
+    if model is None and any(t is not None for t in thresholds):
+        raise DecisionError("--target-recall, --review-budget and --false-alarm-rate need a "
+                            "model; pass --model")
     checks = run_checks(batch, rules=rules)
     variables = list(FLAGGED_VARIABLES)
     if checks.checks_for("pressure"):
@@ -233,7 +245,8 @@ def flag_batch(
         fusion = _fusion_for(model, var) if p is not None else None
         threshold = None
         if p is not None:
-            threshold = _decision_threshold(fusion, var, target_recall, review_budget)
+            threshold = _decision_threshold(fusion, var, target_recall, review_budget,
+                                            false_alarm_rate)
         vf = combine(
             checks, var, p,
             caution=caution if p is not None else 0.0,
@@ -426,6 +439,7 @@ def flag_files(
     caution: float = 0.0,
     target_recall: float | None = None,
     review_budget: float | None = None,
+    false_alarm_rate: float | None = None,
     probabilities: bool = False,
     progress: bool | Callable[[str], None] = False,
     command: str | None = None,
@@ -445,7 +459,7 @@ def flag_files(
         Output file (one input) or directory (several inputs).
     model : QCModel or path-like, optional
         Fitted model or its file; None gives rules-only flags.
-    rules, scheme, caution, target_recall, review_budget
+    rules, scheme, caution, target_recall, review_budget, false_alarm_rate
         As in :func:`flag_batch`.
     overwrite : bool, default=False
         Replace existing outputs.
@@ -505,7 +519,7 @@ def flag_files(
         rules = load_rules(rules)  # parsed once, for the first file, kept for the rest
         result = flag_batch(batch, model=model, rules=rules, caution=caution,
                             target_recall=target_recall, review_budget=review_budget,
-                            scheme=scheme)
+                            false_alarm_rate=false_alarm_rate, scheme=scheme)
         added = flagged_columns(batch, result, scheme=scheme, probabilities=probabilities)
         write(batch, dst, added=added, overwrite=overwrite, history=history)
         summary.add(result, batch.n_profiles, batch.n_levels, dst)

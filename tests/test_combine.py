@@ -355,3 +355,32 @@ def test_a_check_that_never_fired_in_training_is_taken_at_its_word():
                         ("density_inversion", VAR): CheckResult(np.zeros(3), verdict)}, 3)
     grade = combine(later, VAR, good_model, fusion=fusion).grade
     assert grade[0] <= 2 and (grade[1:] >= 3).all()
+
+
+def test_false_alarm_rate_threshold_from_the_passed_levels():
+    # generated scenario: passed levels spread over 0 .. 0.1, a few at exactly 0.1 (a
+    # plateau of the isotonic map); a 1 % rate must not flag the plateau's ties
+    qs = np.linspace(0, 1, 1001)
+    fp = FusionParams(variable=VAR, pass_quantiles=list(np.minimum(0.1 * qs / 0.99, 0.1)))
+    t = fp.threshold_for_false_alarms(0.01)
+    assert t > 0.1 and t == pytest.approx(0.1)
+    p = np.array([[0.5, 0.4, 0.05, 0.05], [0.5, 0.3, 0.1, 0.1], [0.2, 0.2, 0.3, 0.3]])
+    g = decide(p, threshold=t)
+    assert g[0] <= 2 and g[1] >= 3 and g[2] >= 3  # P(>=3): 0.1 (a tie) passes, 0.2, 0.6 flag
+    t2 = fp.threshold_for_false_alarms(0.5)
+    assert t2 == pytest.approx(0.1 * 0.5 / 0.99, rel=1e-3)
+    assert fp.threshold_for_false_alarms(0.0) == np.inf
+    with pytest.raises(DecisionError):
+        FusionParams(variable=VAR).threshold_for_false_alarms(0.01)  # no validation data
+    with pytest.raises(DecisionError):
+        fp.threshold_for_false_alarms(1.5)
+
+
+def test_fit_fusion_stores_the_passed_levels_quantiles():
+    y, proba, checks = _synthetic_oof(20_000, 7)
+    fusion = fit_fusion(y, proba, checks, VAR)
+    p_bad = fuse(checks, VAR, proba, fusion)[:, 2:].sum(axis=1)
+    passed = y <= 2
+    t = fusion.threshold_for_false_alarms(0.02)
+    assert (p_bad[passed] >= t).mean() == pytest.approx(0.02, abs=0.005)
+    assert (p_bad[~passed] >= t).mean() > (p_bad[passed] >= t).mean() * 10

@@ -170,3 +170,20 @@ def test_cli_train_evaluate_runs(tmp_path):
     res = runner.invoke(app, ["train", csvs[0], "--model", str(tmp_path / "x.qcm"),
                               "--estimator", "magic"])
     assert res.exit_code == 2
+
+
+def test_decision_knobs_on_a_trained_model(trained, archive):
+    # invented scenario (qcflag.simulate), truth known: a false-alarm rate flags about that
+    # share of the truly good held-out levels and loses no recall against the default
+    from qcflag.pipeline import flag_batch
+
+    model, _, hold = trained
+    test = archive.select(archive.profiles["cruise"].isin(hold).to_numpy())
+    default = flag_batch(test, model=model)
+    fa = flag_batch(test, model=model, false_alarm_rate=0.02)
+    for var in ("temperature", "salinity"):
+        truth = test.extra[f"truth_{var}_grade"].to_numpy()
+        good, bad = truth == 1, truth >= 3
+        assert (fa[var].grade[good] >= 3).mean() < 0.04
+        assert (fa[var].grade[bad] >= 3).mean() >= (default[var].grade[bad] >= 3).mean()
+        assert model.card["fusion"][var]["pass_quantiles"]  # stored with the model

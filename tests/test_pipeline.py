@@ -195,6 +195,9 @@ def test_cli_flag_rules_only_csv_keeps_columns_and_adds_three_per_variable(tmp_p
     bad = CliRunner().invoke(app, ["flag", str(src), "--out", str(tmp_path / "x.csv"),
                                    "--target-recall", "0.9"])
     assert bad.exit_code == 1 and "--model" in bad.output
+    bad = CliRunner().invoke(app, ["flag", str(src), "--out", str(tmp_path / "x.csv"),
+                                   "--false-alarm-rate", "0.01"])
+    assert bad.exit_code == 1 and "--model" in bad.output
     usage = CliRunner().invoke(app, ["flag", str(src)])
     assert usage.exit_code == 2
 

@@ -35,6 +35,10 @@ def flag_cmd(
     review_budget: Annotated[float | None, typer.Option(
         help="Share of levels a person will review; flag the most suspicious (model runs).",
         min=0.0, max=1.0)] = None,
+    false_alarm_rate: Annotated[float | None, typer.Option(
+        help="Flag probably bad so that about this share of good levels is flagged, and as "
+             "many bad ones as the model ranks above them (model runs).",
+        min=0.0, max=1.0)] = None,
     probabilities: Annotated[bool, typer.Option(
         "--probabilities", help="Also write the grade probabilities.")] = False,
     overwrite: Annotated[bool, typer.Option(
@@ -57,7 +61,8 @@ def flag_cmd(
         summary = flag_files_parallel(
             inputs, out, workers=workers or 1, scheduler=scheduler, model=model, rules=rules,
             scheme=scheme, overwrite=overwrite, caution=caution, target_recall=target_recall,
-            review_budget=review_budget, probabilities=probabilities,
+            review_budget=review_budget, false_alarm_rate=false_alarm_rate,
+            probabilities=probabilities,
         )
         typer.echo(summary.to_json())
         return
@@ -66,7 +71,7 @@ def flag_cmd(
     summary = flag_files(
         inputs, out, model=model, rules=rules, scheme=scheme, overwrite=overwrite,
         caution=caution, target_recall=target_recall, review_budget=review_budget,
-        probabilities=probabilities,
+        false_alarm_rate=false_alarm_rate, probabilities=probabilities,
     )
     typer.echo(summary.to_json())
 
