@@ -42,13 +42,14 @@ def _spread(
     grade: NDArray[np.int8],
     *,
     per_profile: bool,
+    judged: tuple[str, ...] = JUDGED,
 ) -> dict[str, CheckResult]:
     """Give a verdict to every judged variable, broadcasting per-profile arrays to levels."""
     if per_profile:
         stat = stat[batch.profile_index]
         grade = grade[batch.profile_index]
     out = {}
-    for name in JUDGED:
+    for name in judged:
         g = grade.copy()
         g[np.isnan(batch.values(name))] = 0
         out[name] = CheckResult(stat.copy(), g)

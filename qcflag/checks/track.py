@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from qcflag.checks.base import CheckResult
+from qcflag.checks.position import _positions, _spread, _valid_position
 
 if TYPE_CHECKING:
     from numpy.typing import NDArray
@@ -149,15 +150,14 @@ def impossible_speed(
         raise ValueError(f"level_grade must be 3 or 4, got {level_grade}")
     prof = batch.profiles
     n = len(prof)
-    lat = prof["latitude"].to_numpy(dtype=np.float64)
-    lon = prof["longitude"].to_numpy(dtype=np.float64)
+    lat, lon = _positions(batch)
     if "time" in prof.columns:
         t = pd.to_datetime(prof["time"]).to_numpy().astype("datetime64[ns]")
     else:
         t = np.full(n, np.datetime64("NaT"), dtype="datetime64[ns]")
+    seconds = t.astype(np.int64) / 1e9
     track = track_codes(prof)
-    ok = (np.isfinite(lat) & np.isfinite(lon) & (np.abs(lat) <= 90) & (np.abs(lon) <= 180)
-          & ~np.isnat(t) & (track >= 0))
+    ok = _valid_position(lat, lon) & ~np.isnat(t) & (track >= 0)
     if "instrument" in prof.columns:
         is_float = np.char.lower(_text(prof["instrument"])[0]) == "float"
         limit_all = np.where(is_float, float_max_speed, ship_max_speed)
@@ -168,9 +168,8 @@ def impossible_speed(
     offender = np.zeros(n, dtype=bool)
     idx = np.flatnonzero(ok)
     if idx.size >= 2:
-        seconds = t[idx].astype(np.int64) / 1e9
-        idx = idx[np.lexsort((seconds, track[idx]))]
-        sec = t[idx].astype(np.int64) / 1e9
+        idx = idx[np.lexsort((seconds[idx], track[idx]))]
+        sec = seconds[idx]
         la, lo, tr, lim = lat[idx], lon[idx], track[idx], limit_all[idx]
         m = idx.size
         same = tr[1:] == tr[:-1]  # pair (k, k+1) on one track
@@ -197,11 +196,5 @@ def impossible_speed(
         last = has_prev & ~has_next & fast_prev & prv_ok
         offender[idx] = middle | first | last
         stat[idx] = np.fmin(s_prev, s_next)
-    grade_p = np.where(offender, level_grade, np.where(np.isnan(stat), 0, 1)).astype(np.int8)
-    out = {}
-    pi = batch.profile_index
-    for name in JUDGED:
-        g = grade_p[pi]
-        g[np.isnan(batch.values(name))] = 0
-        out[name] = CheckResult(stat[pi], g)
-    return out
+    grade = np.where(offender, level_grade, np.where(np.isnan(stat), 0, 1)).astype(np.int8)
+    return _spread(batch, stat, grade, per_profile=True, judged=JUDGED)
