@@ -413,7 +413,28 @@ def _history_line(command: str | None) -> str:
     return f"{now} qcflag {__version__}: {cmd}"
 
 
-def _output_paths(inputs: Sequence[Path], out: Path) -> list[Path]:
+def output_paths(inputs: Sequence[Path], out: Path) -> list[Path]:
+    """Where the flagged copies go.
+
+    One input writes the file `out` (unless `out` is a directory); several inputs write
+    files named like the inputs into the directory `out`.
+
+    Parameters
+    ----------
+    inputs : sequence of Path
+        Input files.
+    out : Path
+        Output file or directory.
+
+    Returns
+    -------
+    list of Path
+
+    Raises
+    ------
+    QCFlagError
+        If several inputs share a name, or `out` is a file when a directory is needed.
+    """
     if len(inputs) == 1 and not out.is_dir():
         return [out]
     names = [p.name for p in inputs]
@@ -426,6 +447,51 @@ def _output_paths(inputs: Sequence[Path], out: Path) -> list[Path]:
     if out.exists() and not out.is_dir():
         raise QCFlagError(f"{out}: several inputs need an output directory, not a file")
     return [out / n for n in names]
+
+
+def plan_outputs(
+    inputs: Sequence[str | os.PathLike[str]], out: str | os.PathLike[str], overwrite: bool
+) -> list[tuple[Path, Path]]:
+    """Pair inputs with outputs and refuse problems before any work starts.
+
+    Parameters
+    ----------
+    inputs : sequence of path-like
+        Input files (must exist).
+    out : path-like
+        Output file (one input) or directory (several; created).
+    overwrite : bool
+        Whether existing outputs may be replaced.
+
+    Returns
+    -------
+    list of (input, output) Path pairs
+
+    Raises
+    ------
+    QCFlagError
+        No inputs, a missing input, colliding outputs, an output that would replace an input
+        or an existing output without `overwrite`.
+    """
+    from qcflag.exceptions import InputFileError
+    from qcflag.io.atomic import check_writable
+
+    paths = [Path(p) for p in inputs]
+    if not paths:
+        raise InputFileError(None, "no input files given", "name at least one file")
+    for p in paths:
+        if not p.is_file():
+            raise InputFileError(p, "no such input file", "check the path")
+    out_path = Path(out)
+    if len(paths) > 1:
+        out_path.mkdir(parents=True, exist_ok=True)
+    targets = output_paths(paths, out_path)
+    resolved_in = {p.resolve() for p in paths}
+    for t in targets:
+        if t.resolve() in resolved_in:
+            raise QCFlagError(f"{t}: output would replace an input; choose another --out")
+        check_writable(t, overwrite=overwrite)
+    return list(zip(paths, targets, strict=True))
 
 
 def flag_files(
@@ -481,23 +547,8 @@ def flag_files(
         replace an input, or invalid decision settings.
     """
     from qcflag.io import read_files, write
-    from qcflag.io.atomic import check_writable
 
-    paths = [Path(p) for p in inputs]
-    if not paths:
-        raise QCFlagError("no input files given")
-    for p in paths:
-        if not p.is_file():
-            raise QCFlagError(f"{p}: no such input file")
-    out_path = Path(out)
-    if len(paths) > 1:
-        out_path.mkdir(parents=True, exist_ok=True)
-    targets = _output_paths(paths, out_path)
-    resolved_in = {p.resolve() for p in paths}
-    for t in targets:
-        if t.resolve() in resolved_in:
-            raise QCFlagError(f"{t}: output would replace an input; choose another --out")
-        check_writable(t, overwrite=overwrite)
+    pairs = plan_outputs(inputs, out, overwrite)
     if model is not None and isinstance(model, (str, os.PathLike)):
         from qcflag.learn import load_model
 
@@ -514,7 +565,7 @@ def flag_files(
 
     history = _history_line(command)
     summary = FlagSummary(rules_only=model is None)
-    for src, dst in zip(paths, targets, strict=True):
+    for src, dst in pairs:
         batch = read_files([src], scheme=None)
         rules = load_rules(rules)  # parsed once, for the first file, kept for the rest
         result = flag_batch(batch, model=model, rules=rules, caution=caution,

@@ -29,7 +29,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from qcflag.exceptions import InputFileError, QCFlagError
+from qcflag.exceptions import QCFlagError
 
 if TYPE_CHECKING:
     from qcflag.profiles import ProfileBatch
@@ -158,40 +158,6 @@ class ArchiveSummary:
 
 
 # --------------------------------------------------------------------------- the task
-def output_paths(inputs: list[Path], out: Path) -> list[Path]:
-    """Where the flagged copies go: the rule of :func:`qcflag.pipeline.flag_files`.
-
-    One input writes the file `out` (unless `out` is a directory); several inputs write
-    files named like the inputs into the directory `out`.
-
-    Parameters
-    ----------
-    inputs : list of Path
-        Input files.
-    out : Path
-        Output file or directory.
-
-    Returns
-    -------
-    list of Path
-
-    Raises
-    ------
-    QCFlagError
-        If several inputs share a name, or `out` is a file when a directory is needed.
-    """
-    if len(inputs) == 1 and not out.is_dir():
-        return [out]
-    names = [p.name for p in inputs]
-    dup = sorted({n for n in names if names.count(n) > 1})
-    if dup:
-        raise QCFlagError(f"{dup[0]}: several inputs share this name, so their outputs in "
-                          f"{out} would collide; flag them in separate runs")
-    if out.exists() and not out.is_dir():
-        raise QCFlagError(f"{out}: several inputs need an output directory, not a file")
-    return [out / n for n in names]
-
-
 def _concat_added(parts: list[Mapping[str, Any]]) -> dict[str, Any]:
     """Concatenate the added columns of consecutive chunks of one file."""
     from qcflag.io import AddedColumn
@@ -420,30 +386,6 @@ def _progress(total: int, enabled: bool) -> Any:
     return prog
 
 
-def _plan(
-    inputs: Sequence[str | os.PathLike[str]], out: str | os.PathLike[str], overwrite: bool
-) -> list[tuple[Path, Path]]:
-    """Pair inputs with outputs and refuse problems before any work starts."""
-    from qcflag.io.atomic import check_writable
-
-    paths = [Path(p) for p in inputs]
-    if not paths:
-        raise InputFileError(None, "no input files given", "name at least one file")
-    for p in paths:
-        if not p.is_file():
-            raise InputFileError(p, "no such input file", "check the path")
-    out = Path(out)
-    if len(paths) > 1:
-        out.mkdir(parents=True, exist_ok=True)
-    targets = output_paths(paths, out)
-    resolved_in = {p.resolve() for p in paths}
-    for t in targets:
-        if t.resolve() in resolved_in:
-            raise QCFlagError(f"{t}: output would replace an input; choose another --out")
-        check_writable(t, overwrite=overwrite)
-    return list(zip(paths, targets, strict=True))
-
-
 def _client(workers: int, scheduler: str | None) -> tuple[Any, Any]:
     """Connect to `scheduler`, or start a LocalCluster of `workers` single-threaded processes."""
     from distributed import Client
@@ -647,7 +589,9 @@ def flag_files_parallel(
     if chunk_levels < 1:
         raise QCFlagError(f"chunk_levels {chunk_levels}: must be at least 1")
     t0 = time.perf_counter()
-    pairs = _plan(inputs, out, overwrite)
+    from qcflag.pipeline import plan_outputs
+
+    pairs = plan_outputs(inputs, out, overwrite)
     from qcflag.io.netcdf import history_line
 
     history = history_line(history)
