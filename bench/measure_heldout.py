@@ -66,6 +66,19 @@ def _level_index(batch: Any, table: Any) -> np.ndarray:
     return batch.offsets[prof] + table["level"].to_numpy(dtype=np.int64)
 
 
+def _grade_scores(ref: np.ndarray, pred: np.ndarray) -> dict[str, float]:
+    """MAE and QWK of `pred` against `ref` on the levels `ref` grades (ref > 0)."""
+    from qcflag.learn.metrics import (
+        confusion,
+        mean_absolute_grade_error,
+        quadratic_weighted_kappa,
+    )
+
+    ok = ref > 0
+    return {"mae": float(mean_absolute_grade_error(ref[ok], pred[ok])),
+            "qwk": float(quadratic_weighted_kappa(confusion(ref[ok], pred[ok])))}
+
+
 CLASS_WEIGHTS: tuple[Any, ...] = (None, "sqrt", "balanced")
 """Settings each learned model chooses from by grouped CV on the training cruises."""
 
@@ -83,11 +96,6 @@ def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
     from qcflag.features import build_features
     from qcflag.learn.estimators import make_estimator
     from qcflag.learn.evaluation import fit_subsampled, grouped_cross_validate
-    from qcflag.learn.metrics import (
-        confusion,
-        mean_absolute_grade_error,
-        quadratic_weighted_kappa,
-    )
     from qcflag.learn.model import labels_for, quantisation_scales, quantise
     from qcflag.rules import run_checks
 
@@ -133,12 +141,8 @@ def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
             forced = np.maximum(alone, forced_te).astype(np.int64)
             row: dict[str, Any] = {"class_weight": chosen or "-"}
             for ref_name, ref in (("manual", yte), ("truth", truth)):
-                ok = ref > 0
                 for label, pred in (("", alone), ("forced_", forced)):
-                    cm = confusion(ref[ok], pred[ok])
-                    row[label + ref_name] = {
-                        "mae": float(mean_absolute_grade_error(ref[ok], pred[ok])),
-                        "qwk": float(quadratic_weighted_kappa(cm))}
+                    row[label + ref_name] = _grade_scores(ref, pred)
             res[name] = row
         out[var] = res
     return out
@@ -159,11 +163,6 @@ def main() -> None:
     from qcflag.combine import reliability_curve
     from qcflag.demo import demo_config
     from qcflag.learn import train_model
-    from qcflag.learn.metrics import (
-        confusion,
-        mean_absolute_grade_error,
-        quadratic_weighted_kappa,
-    )
     from qcflag.learn.model import labels_for
     from qcflag.pipeline import flag_batch
     from qcflag.simulate import simulate_archive
@@ -266,14 +265,11 @@ def main() -> None:
                       f"{r[pre + 'manual']['mae']:>10.4f} {r[pre + 'manual']['qwk']:>10.3f} "
                       f"{r[pre + 'truth']['mae']:>10.4f} {r[pre + 'truth']['qwk']:>10.3f}")
         g = result[var].grade.astype(np.int64)
-        cells = []
-        for ref in (labels_for(test, var),
-                    test.extra[f"truth_{var}_grade"].to_numpy().astype(np.int64)):
-            ok = (ref > 0) & (g > 0)
-            cells += [mean_absolute_grade_error(ref[ok], g[ok]),
-                      quadratic_weighted_kappa(confusion(ref[ok], g[ok]))]
-        print(f"{var:<12} {'combiner (boosted)':<20} {'-':<9} {cells[0]:>10.4f} "
-              f"{cells[1]:>10.3f} {cells[2]:>10.4f} {cells[3]:>10.3f}")
+        refs = [labels_for(test, var),
+                test.extra[f"truth_{var}_grade"].to_numpy().astype(np.int64)]
+        man, tru = (_grade_scores(np.where(g > 0, ref, 0), g) for ref in refs)
+        print(f"{var:<12} {'combiner (boosted)':<20} {'-':<9} {man['mae']:>10.4f} "
+              f"{man['qwk']:>10.3f} {tru['mae']:>10.4f} {tru['qwk']:>10.3f}")
     print()
     for var in ("temperature", "salinity"):
         truth = test.extra[f"truth_{var}_grade"].to_numpy()
