@@ -9,13 +9,14 @@ and read back without pickle (see :mod:`qcflag.learn.store`).
 Prediction goes through :class:`TreeForest`, built once per set of ensembles and cached:
 every split threshold of a feature is one of few distinct values, so the forest codes each
 input value by how many of its feature's thresholds lie below it (an 8-bit code, NaN its own
-code), and runs scikit-learn's compiled tree walkers on these codes, a cache-sized block of
-levels at a time, all trees of all ensembles per block. ``x <= t`` holds exactly when
-``code(x) <= position of t``, so the scores are bit-identical to walking the raw values
-(and to the classifier's own ``decision_function``): each level's leaf values are summed in
-the same order. :meth:`TreeEnsemble.raw_numpy` is an independent vectorised evaluator of
-our own that walks all samples one tree depth at a time; the tests check both against
-scikit-learn.
+code) and walks all trees of all ensembles on these codes, a cache-sized block of levels at a
+time. ``x <= t`` holds exactly when ``code(x) <= position of t``, so the scores are
+bit-identical to walking the raw values (and to the classifier's own ``decision_function``):
+each level's leaf values are summed in the same order. The walker is a numba-compiled kernel
+of our own when numba is installed (imported on first prediction only), and scikit-learn's
+compiled tree walkers otherwise; both give the same bits. :meth:`TreeEnsemble.raw_numpy` is
+an independent vectorised evaluator of our own that walks all samples one tree depth at a
+time; the tests check all three against scikit-learn.
 
 Only numeric (non-categorical) splits are supported; qcflag's features are all numeric.
 """
@@ -276,6 +277,189 @@ class TreeEnsemble:
 #: levels per block in :meth:`TreeForest.raw` (codes of a block stay in the L2 cache)
 BLOCK_LEVELS = 16_384
 _MISSING_CODE = 255
+#: use the numba-compiled walker when numba imports (tests set it False to force scikit-learn's)
+USE_NUMBA = True
+_LEAF_CODE = 255  # threshold code of a leaf: no code exceeds it, so a leaf steps to itself
+_kernel_cache: dict[str, Any] = {}
+
+
+def _pair_layout(
+    left: NDArray[np.int64], right: NDArray[np.int64], is_leaf: NDArray[np.bool_],
+    offsets: NDArray[np.int64],
+) -> NDArray[np.int64]:
+    """Renumber the nodes so that each split's two children are neighbours.
+
+    Trees keep their ranges of positions and their roots; the children of the splits at
+    one depth are placed, tree by tree in the new order of their parents, after those of
+    the depth above (a breadth-first order). Vectorised per depth over all trees.
+
+    Parameters
+    ----------
+    left, right : ndarray of int64
+        Children as positions within their tree.
+    is_leaf : ndarray of bool
+        Leaf flags.
+    offsets : ndarray of int64
+        Tree ``t`` holds nodes ``offsets[t]:offsets[t + 1]``.
+
+    Returns
+    -------
+    ndarray of int64
+        New global position of every node, indexed by its old global position.
+    """
+    sizes = np.diff(offsets)
+    start = np.repeat(offsets[:-1], sizes)
+    tree = np.repeat(np.arange(sizes.size), sizes)
+    new = np.full(left.size, -1, dtype=np.int64)
+    roots = offsets[:-1]
+    new[roots] = roots
+    nxt = roots + 1  # next free position of each tree
+    front = roots[~is_leaf[roots]]
+    while front.size:
+        front = front[np.argsort(new[front], kind="stable")]  # by tree, then by position
+        t = tree[front]
+        first = np.searchsorted(t, t)  # first entry of the same tree in the frontier
+        pos = nxt[t] + 2 * (np.arange(front.size) - first)
+        lft, rgt = start[front] + left[front], start[front] + right[front]
+        new[lft], new[rgt] = pos, pos + 1
+        np.add.at(nxt, t, 2)
+        kids = np.concatenate([lft, rgt])
+        front = kids[~is_leaf[kids]]
+    return new
+
+
+def _forest_block_py(  # pragma: no cover - runs compiled by numba (see _numba_kernel)
+    X: NDArray[np.float64], start: int, stop: int, cols: NDArray[np.int64],
+    thresholds: NDArray[np.float64], words: NDArray[np.uint64], values: NDArray[np.float64],
+    roots: NDArray[np.int64], tree_ens: NDArray[np.int64], baselines: NDArray[np.float64],
+    out: NDArray[np.float64],
+) -> None:
+    """Code and walk levels ``start:stop`` of `X` into ``out[start:stop]`` (numba kernel).
+
+    Levels are taken 512 at a time (their codes stay in the L1 cache). Coding: a branch-free
+    lower bound in the feature's 256 sorted thresholds (padded with +inf) gives the number of
+    thresholds below the value; column ``j`` holds it with NaN as 255 and column ``j + n_cols``
+    with NaN as 0, so a split whose missing values go left reads the second copy and ``code >
+    threshold code`` always sends NaN the right way. Walking: every node is one 64-bit word
+    (child pair position in the low 32 bits, threshold code in bits 32-39, code column from bit
+    40); the next node is ``child + (code > threshold code)``, and a leaf has code 255 and
+    itself as child. Eight levels walk a tree together until all eight sit on leaves. Each level
+    starts from its ensemble's baseline and adds its leaf values tree by tree, in the trees'
+    order.
+    """
+    n_cols = cols.size
+    width = np.uint64(2 * n_cols)
+    n_ens = baselines.size
+    n_trees = roots.size
+    low = np.uint64(0xFFFFFFFF)
+    byte = np.uint64(0xFF)
+    s32 = np.uint64(32)
+    s40 = np.uint64(40)
+    lanes = 8
+    sub = 512
+    codes = np.zeros(sub * 2 * n_cols, dtype=np.uint8)
+    acc = np.empty((sub, n_ens), dtype=np.float64)
+    for s0 in range(start, stop, sub):
+        m = min(sub, stop - s0)
+        for i in range(m):
+            row = i * 2 * n_cols
+            for j in range(n_cols):
+                x = X[s0 + i, cols[j]]
+                th = thresholds[j]
+                b = 0
+                b += 128 * (th[b + 127] < x)
+                b += 64 * (th[b + 63] < x)
+                b += 32 * (th[b + 31] < x)
+                b += 16 * (th[b + 15] < x)
+                b += 8 * (th[b + 7] < x)
+                b += 4 * (th[b + 3] < x)
+                b += 2 * (th[b + 1] < x)
+                b += th[b] < x
+                missing = x != x
+                codes[row + j] = 255 if missing else b
+                codes[row + n_cols + j] = 0 if missing else b
+        m8 = (m + lanes - 1) // lanes * lanes
+        for i in range(m, m8):  # padding levels of the last group: any valid code
+            for j in range(2 * n_cols):
+                codes[i * 2 * n_cols + j] = 0
+        for i in range(m):
+            for k in range(n_ens):
+                acc[i, k] = baselines[k]
+        for i0 in range(0, m8, lanes):
+            b0 = np.uint64(i0) * width
+            b1 = b0 + width
+            b2 = b1 + width
+            b3 = b2 + width
+            b4 = b3 + width
+            b5 = b4 + width
+            b6 = b5 + width
+            b7 = b6 + width
+            for t in range(n_trees):
+                r = np.uint64(roots[t])
+                n0 = n1 = n2 = n3 = n4 = n5 = n6 = n7 = r
+                while True:
+                    w0 = words[n0]
+                    w1 = words[n1]
+                    w2 = words[n2]
+                    w3 = words[n3]
+                    w4 = words[n4]
+                    w5 = words[n5]
+                    w6 = words[n6]
+                    w7 = words[n7]
+                    if ((w0 & w1 & w2 & w3 & w4 & w5 & w6 & w7) >> s32) & byte == byte:
+                        break
+                    n0 = (w0 & low) + np.uint64(codes[b0 + (w0 >> s40)] > ((w0 >> s32) & byte))
+                    n1 = (w1 & low) + np.uint64(codes[b1 + (w1 >> s40)] > ((w1 >> s32) & byte))
+                    n2 = (w2 & low) + np.uint64(codes[b2 + (w2 >> s40)] > ((w2 >> s32) & byte))
+                    n3 = (w3 & low) + np.uint64(codes[b3 + (w3 >> s40)] > ((w3 >> s32) & byte))
+                    n4 = (w4 & low) + np.uint64(codes[b4 + (w4 >> s40)] > ((w4 >> s32) & byte))
+                    n5 = (w5 & low) + np.uint64(codes[b5 + (w5 >> s40)] > ((w5 >> s32) & byte))
+                    n6 = (w6 & low) + np.uint64(codes[b6 + (w6 >> s40)] > ((w6 >> s32) & byte))
+                    n7 = (w7 & low) + np.uint64(codes[b7 + (w7 >> s40)] > ((w7 >> s32) & byte))
+                k = tree_ens[t]
+                left = m - i0  # padding lanes of the last group are walked but not kept
+                acc[i0, k] += values[n0]
+                if left > 1:
+                    acc[i0 + 1, k] += values[n1]
+                if left > 2:
+                    acc[i0 + 2, k] += values[n2]
+                if left > 3:
+                    acc[i0 + 3, k] += values[n3]
+                if left > 4:
+                    acc[i0 + 4, k] += values[n4]
+                if left > 5:
+                    acc[i0 + 5, k] += values[n5]
+                if left > 6:
+                    acc[i0 + 6, k] += values[n6]
+                if left > 7:
+                    acc[i0 + 7, k] += values[n7]
+        for i in range(m):
+            for k in range(n_ens):
+                out[s0 + i, k] = acc[i, k]
+
+
+def _numba_kernel() -> Any:
+    """Return the compiled block walker, or None when numba is missing or disabled.
+
+    numba is imported here, on the first boosted prediction, so importing qcflag stays fast.
+    Compiled code is cached on disk when a cache directory is writable, and compiled
+    anew in memory otherwise.
+    """
+    if not USE_NUMBA:
+        return None
+    if "block" not in _kernel_cache:
+        try:
+            import numba
+        except ImportError:  # numba absent or incompatible with this numpy
+            _kernel_cache["block"] = None
+        else:
+            try:
+                jit = numba.njit(nogil=True, cache=True)(_forest_block_py)
+            except RuntimeError:  # no writable cache directory
+                jit = numba.njit(nogil=True, cache=False)(_forest_block_py)
+            _kernel_cache["block"] = jit
+    return _kernel_cache["block"]
+
 
 
 class TreeForest:
@@ -338,6 +522,48 @@ class TreeForest:
                 TreePredictor(rec[int(off[t]):int(off[t + 1])].copy(), empty, empty)
                 for t in range(e.n_trees)
             ])
+        if self.binned:
+            self._build_words(compact)
+
+    def _build_words(self, compact: NDArray[np.int64]) -> None:
+        """Arrays of the numba walker: padded thresholds and one 64-bit word per node."""
+        n_cols = self.columns.size
+        self.padded = np.full((n_cols, 256), np.inf)
+        for j, t in enumerate(self.thresholds):
+            self.padded[j, :t.size] = t
+        offsets, words, values, tree_ens = [np.zeros(1, dtype=np.int64)], [], [], []
+        base = 0
+        for k, (e, preds) in enumerate(zip(self.ensembles, self.predictors, strict=True)):
+            nd = e.nodes
+            off = np.asarray(e.tree_offsets, dtype=np.int64)
+            code = (np.concatenate([p.nodes["bin_threshold"] for p in preds]) if preds
+                    else np.zeros(0, dtype=np.int64)).astype(np.uint64)
+            leaf = nd["is_leaf"]
+            new = _pair_layout(nd["left"], nd["right"], leaf, off)
+            col = (compact[nd["feature"]] + np.where(nd["missing_left"], n_cols, 0)).astype(
+                np.uint64)
+            child = np.empty(new.size, dtype=np.int64)
+            start = np.repeat(off[:-1], np.diff(off))
+            child[~leaf] = new[start[~leaf] + nd["left"][~leaf]]
+            child[leaf] = new[leaf]  # a leaf steps to itself
+            word = np.where(
+                leaf, np.uint64(_LEAF_CODE) << np.uint64(32),
+                (code << np.uint64(32)) | (col << np.uint64(40)),
+            ) | (child + base).astype(np.uint64)
+            w = np.empty(new.size, dtype=np.uint64)
+            w[new] = word
+            v = np.empty(new.size, dtype=np.float64)
+            v[new] = nd["value"]
+            words.append(w)
+            values.append(v)
+            offsets.append(off[1:] + base)
+            tree_ens.append(np.full(e.n_trees, k, dtype=np.int64))
+            base += new.size
+        self.words = np.concatenate(words) if words else np.zeros(0, dtype=np.uint64)
+        self.values = np.concatenate(values) if values else np.zeros(0)
+        self.roots = np.concatenate(offsets)[:-1]
+        self.tree_ens = (np.concatenate(tree_ens) if tree_ens
+                         else np.zeros(0, dtype=np.int64))
 
     def __getstate__(self) -> dict[str, Any]:
         """Pickle the ensembles only (scikit-learn's walkers need writable node arrays)."""
@@ -368,8 +594,16 @@ class TreeForest:
         not_cat = np.zeros(self.columns.size, dtype=np.uint8)
         known = np.zeros((0, 8), dtype=np.uint32)
         fmap = np.zeros(self.columns.size, dtype=np.uint32)
+        kernel = _numba_kernel() if self.binned and not self.dummy else None
+        if kernel is not None:
+            X = np.ascontiguousarray(X)
 
         def block(start: int) -> None:
+            if kernel is not None:
+                kernel(X, start, min(start + BLOCK_LEVELS, n), self.columns, self.padded,
+                       self.words, self.values, self.roots, self.tree_ens,
+                       np.asarray(self.baselines), out)
+                return
             # one thread per block: coarse-grained, so a busy core never stalls the others
             stop = min(start + BLOCK_LEVELS, n)
             vals = (np.zeros((stop - start, 1)) if self.dummy
