@@ -383,3 +383,46 @@ def test_direct_reader_errors_are_xarrays(tmp_path):
         nc["row_size"][0] = 10_000  # more levels than the sample dimension holds
     with pytest.raises(InputFileError, match=r"row_size.*sums to"):
         read_netcdf(p)
+
+
+def test_whole_variable_get_and_put_equal_netcdf4_indexing(tmp_path):
+    """_read_whole / _write_whole call netCDF4's _get/_put; they must equal var[...]."""
+    from qcflag.io import netcdf
+
+    rng = np.random.default_rng(3)
+    data = {
+        "f8": ("f8", ("n",), rng.normal(size=7)),
+        "big": (">i4", ("n",), np.arange(7, dtype=">i4") - 3),  # stored big-endian
+        "i1": ("i1", ("n",), np.array([1, -128, 4, 9, 0, 1, 2], dtype=np.int8)),
+        "grid": ("f4", ("m", "n"), rng.normal(size=(2, 7)).astype(np.float32)),
+        "chars": ("S1", ("m", "k"), np.array([[b"a", b"b", b""], [b"c", b"", b""]])),
+        "text": (str, ("m",), np.array(["é x", ""], dtype=object)),
+        "empty": ("f8", ("u",), np.zeros(0)),
+        "scalar": ("i8", (), np.array(5, dtype=np.int64)),
+    }
+    paths = {}
+    for how in ("setitem", "direct"):
+        p = paths[how] = tmp_path / f"{how}.nc"
+        with netCDF4.Dataset(p, "w", format="NETCDF4") as nc:
+            for d, n in (("n", 7), ("m", 2), ("k", 3), ("u", None)):
+                nc.createDimension(d, n)
+            for name, (dt, dims, vals) in data.items():
+                var = nc.createVariable(name, dt, dims,
+                                        endian="big" if name == "big" else "native")
+                var.set_auto_maskandscale(False)
+                var.set_auto_chartostring(False)
+                if how == "setitem":
+                    var[...] = vals
+                else:
+                    netcdf._write_whole(var, vals)
+    assert paths["setitem"].read_bytes() == paths["direct"].read_bytes()
+    with netCDF4.Dataset(paths["direct"]) as nc:
+        for name, (_, _, vals) in data.items():
+            var = nc[name]
+            var.set_auto_maskandscale(False)
+            var.set_auto_chartostring(False)
+            want = var[...]
+            got = netcdf._read_whole(var, tuple(int(n) for n in var.shape))
+            assert type(got) is type(want) and got.dtype == want.dtype, name
+            np.testing.assert_array_equal(got, want)
+            np.testing.assert_array_equal(np.asarray(got), vals)

@@ -318,7 +318,7 @@ def _open_raw(path: Path) -> _RawDataset | None:
                 var.set_auto_chartostring(False)
                 dims = tuple(var.dimensions)
                 shape = tuple(int(n) for n in var.shape)
-                values = var[...]
+                values = _read_whole(var, shape)
                 if vlen_str:
                     values = np.asarray(values, dtype=object).reshape(shape)
                 values = np.asarray(values)
@@ -336,6 +336,25 @@ def _open_raw(path: Path) -> _RawDataset | None:
     except Exception:  # whatever went wrong, the xarray path reports it properly
         return None
     return _RawDataset(variables, gattrs, sizes)
+
+
+def _whole(shape: tuple[int, ...]) -> tuple[NDArray[np.intp], ...]:
+    """``start, count, stride`` of a whole variable for netCDF4's ``_get``/``_put``."""
+    nd = len(shape)
+    return np.zeros(nd, np.intp), np.array(shape, np.intp), np.ones(nd, np.intp)
+
+
+def _read_whole(var: Any, shape: tuple[int, ...]) -> Any:
+    """``var[...]`` of a netCDF4 variable with auto mask/scale and char-to-string off.
+
+    ``Variable.__getitem__`` spends ~100 us of Python per call working out the slice and
+    checking scale attributes that are off here; for a whole variable of rank >= 1 it ends
+    in ``Variable._get(start, count, stride)``, called here directly (same array, same
+    dtype; an empty variable is not read at all, as there).
+    """
+    if not shape or 0 in shape:
+        return var[...]
+    return var._get(*_whole(shape))
 
 
 def _attr(var: Any, key: str) -> Any:
@@ -1296,6 +1315,23 @@ def _write_direct(path: Path, plan: tuple[dict[str, int], list[_CreateArgs]],
             var.setncatts(vattrs)
             var.set_auto_maskandscale(False)
             var.set_auto_chartostring(False)
-            var[...] = data
+            _write_whole(var, data)
     finally:
         ds.close()
+
+
+def _write_whole(var: Any, data: NDArray[Any]) -> None:
+    """``var[...] = data`` for a new netCDF4 variable of `data`'s shape (mask/scale off).
+
+    ``Variable.__setitem__`` spends ~100 us of Python per call on slice arithmetic; with
+    auto mask/scale off, no ``least_significant_digit`` and data of the variable's shape,
+    it casts the data to the variable's dtype (object arrays for strings are kept) and
+    calls ``Variable._put(data, start, count, stride)``, as done here directly. The file
+    bytes are the same (tests/test_io_netcdf.py compares with xarray's ``to_netcdf``).
+    """
+    if data.ndim == 0 or data.size == 0 or tuple(var.shape) != data.shape:
+        var[...] = data
+        return
+    if data.dtype.kind != "O":
+        data = np.array(data, dtype=var.dtype)  # the copy and cast __setitem__ makes
+    var._put(data, *_whole(data.shape))
