@@ -426,3 +426,86 @@ def test_whole_variable_get_and_put_equal_netcdf4_indexing(tmp_path):
             assert type(got) is type(want) and got.dtype == want.dtype, name
             np.testing.assert_array_equal(got, want)
             np.testing.assert_array_equal(np.asarray(got), vals)
+
+
+def _xarray_times(raw, attrs):
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        dec = xr.decode_cf(xr.Dataset({"t": (("n",), raw, attrs)}))["t"].values
+    return dec.astype("datetime64[ns]")
+
+
+_I64_MIN = np.iinfo(np.int64).min
+
+
+@pytest.mark.parametrize(("raw", "attrs"), [
+    # what write_netcdf writes: int64 at the batch's resolution, int64 min as the fill
+    (np.array([1_700_000_000_123_456_789, _I64_MIN, 0, -5], dtype=np.int64),
+     {"units": "nanoseconds since 1970-01-01", "calendar": "standard",
+      "_FillValue": np.int64(_I64_MIN)}),
+    (np.array([1_700_000_000, _I64_MIN, -86_400], dtype=np.int64),
+     {"units": "seconds since 1970-01-01 00:00:00", "calendar": "standard"}),
+    (np.array([1, 2, 3], dtype=np.int64), {"units": "microseconds since 1970-01-01"}),
+    (np.array([1, 2, -999], dtype=np.int32),
+     {"units": "milliseconds since 2000-06-30T12:00:00Z", "missing_value": np.int32(-999)}),
+    (np.array([0, 1, 65535], dtype=np.uint16),
+     {"units": "Hours since 1990-01-01", "_FillValue": np.uint16(65535)}),
+    (np.array([0, 1, 3, -2], dtype=np.int8), {"units": "minute since 2020-02-29 23:59:59"}),
+    (np.array([27_000, -30, 0], dtype=np.int16), {"units": "day since 1900-01-01",
+                                                 "_FillValue": np.int16(0),
+                                                 "calendar": "gregorian"}),
+    # floats: days since 1950 (common in ocean data), fractions, NaN and a fill value
+    (np.array([25_000.5, np.nan, 1e5 / 3, -0.123456789, 27_123.987654321, -99_999.0]),
+     {"units": "days since 1950-01-01 00:00:00", "_FillValue": -99_999.0,
+      "calendar": "proleptic_gregorian"}),
+    (np.array([0.1, 0.7, 1e9 + 0.3], dtype=np.float32),
+     {"units": "seconds since 1970-01-01T00:00:00.0", "missing_value": np.float32(0.7)}),
+    (np.array([1.5e9, 2e9, 1.0, np.nan]), {"units": "seconds since 1970-01-01",
+                                           "_FillValue": np.nan}),
+    (np.array([np.nan, np.nan]), {"units": "hours since 2001-01-01"}),
+    # sub-nanosecond fractions: truncated towards zero, not rounded
+    (np.array([1.0000000007, -1.7e-9, 2.5e-9, 3.9e-9]), {"units": "seconds since 1970-01-01"}),
+    (np.array([106_000.0, 106_500.25]), {"units": "days since 1800-01-01"}),
+])
+def test_numpy_time_decoder_equals_xarray(raw, attrs):
+    """_times decodes the common CF time units in numpy; values (incl. NaT) as xarray's."""
+    from qcflag.io import netcdf
+
+    fast = netcdf._cf_times_numpy(raw, attrs)
+    assert fast is not None and fast.dtype == np.dtype("datetime64[ns]")
+    np.testing.assert_array_equal(fast, _xarray_times(raw, attrs))
+    assert np.isnat(fast).sum() == np.isnat(_xarray_times(raw, attrs)).sum()
+
+
+@pytest.mark.parametrize(("raw", "attrs"), [
+    (np.array([1, 2]), {"units": "days since 1950-01-01", "calendar": "noleap"}),
+    (np.array([1, 2]), {"units": "months since 1950-01-01"}),
+    (np.array([1, 2]), {"units": "days since 1-1-1"}),
+    (np.array([1, 2]), {"units": "days since 1950-01-01 00:00:00 +02:00"}),
+    (np.array([1, 2]), {"units": "days since 1500-01-01"}),  # before datetime64[ns]
+    (np.array([1, 200_000]), {"units": "days since 1950-01-01"}),  # after 2262
+    (np.array([1.0, 2e17]), {"units": "days since 1950-01-01"}),
+    (np.array([1, 2]), {"units": "days since 1950-01-01", "scale_factor": 2.0}),
+    (np.array([np.iinfo(np.uint64).max], dtype=np.uint64), {"units": "ns since 1970-01-01"}),
+    (np.zeros(0, dtype=np.int64), {"units": "days since 1950-01-01"}),
+])
+def test_numpy_time_decoder_leaves_the_rest_to_xarray(raw, attrs):
+    """Other calendars, units, references and out-of-range values go through xarray."""
+    from qcflag.io import netcdf
+
+    assert netcdf._cf_times_numpy(raw, attrs) is None
+
+
+def test_times_through_xarray_still_decode():
+    """A file whose times the numpy decoder declines (hours since 1-1-1) reads as before."""
+    from qcflag.io import netcdf
+
+    attrs = {"units": "hours since 0001-01-01", "calendar": "proleptic_gregorian"}
+    var = netcdf._RawVariable("time", ("profile",), attrs, {},
+                              np.array([24.0 * 738_000, 24.0 * 738_001]))
+    assert netcdf._cf_times_numpy(var.values, var.attrs) is None
+    got = netcdf._times(var, "x.nc")
+    np.testing.assert_array_equal(got, _xarray_times(var.values, var.attrs))
+    assert got[0] == np.datetime64("2021-07-30T00:00:00", "ns")

@@ -438,6 +438,9 @@ def _times(var: Any, source: str) -> NDArray[np.datetime64]:
                          "give CF time units such as 'days since 1950-01-01 00:00:00'")
     attrs = {k: v for k, v in var.attrs.items()
              if k in ("units", "calendar", "_FillValue", "missing_value")}
+    fast = _cf_times_numpy(raw.ravel(), attrs)
+    if fast is not None:
+        return fast.reshape(raw.shape)
     try:
         dec = xr.decode_cf(xr.Dataset({"t": (("n",), raw.ravel(), attrs)}))["t"].values
     except (ValueError, TypeError, OverflowError) as exc:
@@ -447,6 +450,96 @@ def _times(var: Any, source: str) -> NDArray[np.datetime64]:
         raise UnitsError(source, f"time variable {var.name!r} uses a non-standard calendar",
                          "convert times to the standard (Gregorian) calendar")
     return dec.astype("datetime64[ns]").reshape(raw.shape)
+
+
+_TIME_STEP_NS = {"days": 86_400 * 10**9, "hours": 3_600 * 10**9, "minutes": 60 * 10**9,
+                 "seconds": 10**9, "milliseconds": 10**6, "microseconds": 10**3,
+                 "nanoseconds": 1}
+_TIME_UNITS = re.compile(r"\s*([A-Za-z]+) since (\d{4}-\d\d-\d\d)"
+                         r"(?:[ T](\d\d:\d\d:\d\d)(?:\.0*)?Z?)?\s*")
+_NS_MIN, _NS_MAX = -(2**63) + 1, 2**63 - 1  # datetime64[ns] range (int64 min is NaT)
+
+
+def _cf_times_numpy(raw: NDArray[Any], attrs: Mapping[str, Any]
+                    ) -> NDArray[np.datetime64] | None:
+    """Decode 1-D CF times as ``xr.decode_cf`` does, in numpy; None where unsure.
+
+    Handles integer and float values with units ``<days|hours|...|nanoseconds> since
+    YYYY-MM-DD[ HH:MM:SS]`` (``T`` or space, optional ``.0`` and ``Z``), a standard
+    calendar, a reference time in the datetime64[ns] range and ``_FillValue`` /
+    ``missing_value``, with xarray's arithmetic (2024-2026, default ``time_unit="ns"``):
+    fill values compared after the cast to int64 (integers) or in the float type;
+    integers multiplied exactly into nanoseconds; floats multiplied in float64 by the
+    whole number of nanoseconds per unit and truncated to int64; NaN, filled values and
+    (integers) int64 min become NaT. Anything else (another unit, calendar or reference
+    format, offsets or results outside the datetime64[ns] range, packed values) returns
+    None and is left to xarray, whose Dataset building costs ~4 ms per file.
+    """
+    if set(attrs) - {"units", "calendar", "_FillValue", "missing_value"} or raw.ndim != 1:
+        return None
+    kind = raw.dtype.kind
+    if kind not in "iuf" or raw.dtype.itemsize > 8:
+        return None
+    cal = attrs.get("calendar")
+    cal = "standard" if cal is None else cal
+    if not isinstance(cal, str) or cal.lower() not in ("standard", "gregorian",
+                                                       "proleptic_gregorian"):
+        return None
+    units = attrs.get("units")
+    m = _TIME_UNITS.fullmatch(units) if isinstance(units, str) else None
+    if m is None:
+        return None
+    word = m.group(1).lower()
+    step = _TIME_STEP_NS.get(word if word.endswith("s") else word + "s")
+    if step is None:
+        return None
+    try:
+        ref = int(np.datetime64(f"{m.group(2)}T{m.group(3) or '00:00:00'}", "s")
+                  .astype(np.int64)) * 10**9
+    except (ValueError, OverflowError):
+        return None
+    if not _NS_MIN <= ref <= _NS_MAX or raw.size == 0:
+        return None  # (a datetime64[ns] reference is after 1582-10-15 in any calendar)
+    fills = []
+    for key in ("missing_value", "_FillValue"):
+        if key in attrs:
+            vals = [fv for fv in np.ravel(attrs[key]) if not pd.isnull(fv)]
+            if not vals and kind in "iu":
+                continue  # xarray drops a NaN fill of integers
+            fills += vals
+    if kind in "iu":
+        if kind == "u" and raw.size and int(raw.max()) > _NS_MAX:
+            return None
+        num = raw.astype(np.int64)
+        nat = num == np.iinfo(np.int64).min
+    else:
+        num = np.array(raw, dtype=raw.dtype, copy=True)
+        nat = np.zeros(raw.shape, dtype=bool)
+    for fv in fills:
+        nat |= np.asarray(num == fv, dtype=bool)
+    if kind == "f":
+        nat |= np.isnan(num)
+        with np.errstate(invalid="ignore", over="ignore"):
+            scaled = num.astype(np.float64) * np.int64(step)
+        ok = scaled[~nat]
+        if ok.size and not (np.isfinite(ok).all() and np.abs(ok).max() < 2.0**63):
+            return None
+        ticks = np.zeros(raw.shape, dtype=np.int64)
+        ticks[~nat] = ok.astype(np.int64)
+        lo = int(ticks[~nat].min()) if ok.size else 0
+        hi = int(ticks[~nat].max()) if ok.size else 0
+    else:
+        ok = num[~nat]
+        lo = int(ok.min()) * step if ok.size else 0
+        hi = int(ok.max()) * step if ok.size else 0
+        if not (lo >= _NS_MIN and hi <= _NS_MAX):
+            return None  # the offsets themselves must fit in int64 nanoseconds
+        ticks = np.where(nat, 0, num) * np.int64(step)
+    if not (ref + lo >= _NS_MIN and ref + hi <= _NS_MAX):
+        return None
+    out = ticks + np.int64(ref)
+    out[nat] = np.iinfo(np.int64).min
+    return out.view("datetime64[ns]")
 
 
 def _find(ds: Any, key: str, exclude: set[str]) -> str | None:
