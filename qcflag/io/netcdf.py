@@ -899,12 +899,12 @@ def _from_cf(ds: Any, *, scheme: str | None, source: str) -> ProfileBatch:
         platform = np.full(n_prof, _text(ds.attrs.get("platform", "")), dtype=object)
     used |= {n for n in (pid, cruise_name, platform_name, names["latitude"],
                          names["longitude"], names["time"]) if n}
-    profiles = pd.DataFrame({
+    prof_cols: dict[str, Any] = {
         "profile_id": pid_vals.astype(object), "cruise": cruise.astype(object),
         "time": np.asarray(times, dtype="datetime64[ns]"),
         "latitude": np.asarray(lat, float), "longitude": np.asarray(lon, float),
         "platform": platform.astype(object),
-    })
+    }
     # ---- other variables: profile columns and per-level extras
     extra: dict[str, Any] = {}
     for raw_name, var in ds.variables.items():
@@ -912,16 +912,17 @@ def _from_cf(ds: Any, *, scheme: str | None, source: str) -> ProfileBatch:
         if name in used or name in ds.dims:
             continue
         label = _text(var.attrs.get("original_name")) or name
-        if label in META_COLUMNS or label in profiles.columns or label in extra:
+        if label in META_COLUMNS or label in prof_cols or label in extra:
             continue
         dims = tuple(var.dims)
         base = dims[:-1] if var.dtype.kind == "S" and len(dims) > 1 else dims
         nd = len(base)
         if inst_dim is not None and base == (inst_dim,):
-            profiles[label] = _column(var, 1, source)
+            prof_cols[label] = _column(var, 1, source)
         elif (obs_dim is not None and base == (obs_dim,)) or (
                 obs_dim is None and full and set(base) == set(full)):
             extra[label] = lvl(var, lambda v, nd=nd: _column(v, nd, source))
+    profiles = pd.DataFrame(prof_cols)  # one frame, not a column insertion per variable
     # ---- drop empty profiles
     if not has.any():
         raise InputFileError(source, "no levels with data in any profile",
