@@ -1037,7 +1037,7 @@ def _nc_name(name: str, taken: set[str]) -> str:
 
 def _column_variable(values: Any, dim: str) -> tuple[NDArray[Any], dict[str, Any]]:
     """Return data and encoding of a carried-over column (numbers stay numbers, rest is text)."""
-    s = pd.Series(values) if not isinstance(values, pd.Series) else values.reset_index(drop=True)
+    s = values if isinstance(values, pd.Series) else pd.Series(values)  # (index unused)
     if isinstance(s.dtype, pd.Int64Dtype | pd.Int32Dtype | pd.Int16Dtype | pd.Int8Dtype):
         fill = np.iinfo(np.int64).min
         return s.to_numpy(dtype=np.int64, na_value=fill), {"_FillValue": fill}
@@ -1064,8 +1064,12 @@ def _text_variable(values: Any) -> tuple[NDArray[np.bytes_], dict[str, Any]]:
     if flat.size == 0:
         return np.zeros(np.shape(values), dtype="S1"), {}
     codes, uniq = _factorize_text(flat)
-    text = pd.Series(np.asarray(uniq, dtype=object), dtype=object).fillna("").astype(str)
-    table = np.array([t.encode("utf-8") for t in text.tolist()], dtype=np.bytes_)
+    if all(type(u) is str for u in uniq):
+        text = uniq  # what fillna("").astype(str) gives back for plain strings
+    else:
+        text = pd.Series(np.asarray(uniq, dtype=object), dtype=object).fillna("").astype(str)
+        text = text.tolist()
+    table = np.array([t.encode("utf-8") for t in text], dtype=np.bytes_)
     if table.dtype.itemsize == 0:
         table = table.astype("S1")
     return table[codes].reshape(np.shape(values)), {}
