@@ -121,9 +121,10 @@ def _check_classic_header(path: Path) -> None:
     """
     size = path.stat().st_size
     with path.open("rb") as fh:
+        if fh.read(3) != b"CDF":
+            return  # NetCDF-4 (HDF5): the library checks its own header
+        fh.seek(0)
         buf = fh.read(min(size, 4 << 20))
-    if not buf.startswith(b"CDF"):
-        return
     version = buf[3]
     wide = 8 if version == 5 else 4
     pos = [4]
