@@ -509,3 +509,16 @@ def test_times_through_xarray_still_decode():
     got = netcdf._times(var, "x.nc")
     np.testing.assert_array_equal(got, _xarray_times(var.values, var.attrs))
     assert got[0] == np.datetime64("2021-07-30T00:00:00", "ns")
+
+
+def test_profile_table_round_trip_keeps_order_and_dtypes(tmp_path):
+    """Carried-over profile columns come back in order with their dtypes (one frame built)."""
+    import pandas as pd
+
+    b = _odd_batch()
+    got = read_netcdf(write_netcdf(b, tmp_path / "o.nc", history=HIST)).profiles
+    want = b.profiles.copy()
+    want["bval"] = want["bval"].astype(np.int64)  # booleans are written as integers
+    want["uval"] = want["uval"].fillna("")  # missing text is written as ""
+    assert list(got.columns) == list(want.columns)
+    pd.testing.assert_frame_equal(got, want)
