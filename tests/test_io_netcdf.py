@@ -395,6 +395,8 @@ def test_whole_variable_get_and_put_equal_netcdf4_indexing(tmp_path):
         "big": (">i4", ("n",), np.arange(7, dtype=">i4") - 3),  # stored big-endian
         "i1": ("i1", ("n",), np.array([1, -128, 4, 9, 0, 1, 2], dtype=np.int8)),
         "grid": ("f4", ("m", "n"), rng.normal(size=(2, 7)).astype(np.float32)),
+        "cast": ("f4", ("n",), rng.normal(size=7)),  # float64 data into a float variable
+        "strided": ("i8", ("n",), np.arange(14, dtype=np.int64)[::2]),
         "chars": ("S1", ("m", "k"), np.array([[b"a", b"b", b""], [b"c", b"", b""]])),
         "text": (str, ("m",), np.array(["é x", ""], dtype=object)),
         "empty": ("f8", ("u",), np.zeros(0)),
@@ -425,7 +427,7 @@ def test_whole_variable_get_and_put_equal_netcdf4_indexing(tmp_path):
             got = netcdf._read_whole(var, tuple(int(n) for n in var.shape))
             assert type(got) is type(want) and got.dtype == want.dtype, name
             np.testing.assert_array_equal(got, want)
-            np.testing.assert_array_equal(np.asarray(got), vals)
+            np.testing.assert_array_equal(np.asarray(got), np.asarray(vals).astype(want.dtype))
 
 
 def _xarray_times(raw, attrs):

@@ -1423,14 +1423,13 @@ def _write_whole(var: Any, data: NDArray[Any]) -> None:
     """``var[...] = data`` for a new netCDF4 variable of `data`'s shape (mask/scale off).
 
     ``Variable.__setitem__`` spends ~100 us of Python per call on slice arithmetic; with
-    auto mask/scale off, no ``least_significant_digit`` and data of the variable's shape,
-    it casts the data to the variable's dtype (object arrays for strings are kept) and
-    calls ``Variable._put(data, start, count, stride)``, as done here directly. The file
-    bytes are the same (tests/test_io_netcdf.py compares with xarray's ``to_netcdf``).
+    auto mask/scale off, no ``least_significant_digit`` and a numpy array of the
+    variable's shape it hands the array itself to ``Variable._put(data, start, count,
+    stride)`` (which casts to the variable's dtype), as done here directly. The file bytes
+    are the same (tests/test_io_netcdf.py compares with xarray's ``to_netcdf``).
     """
-    if data.ndim == 0 or data.size == 0 or tuple(var.shape) != data.shape:
+    if (data.ndim == 0 or data.size == 0 or tuple(var.shape) != data.shape
+            or (var.dtype is str) != (data.dtype.kind == "O")):
         var[...] = data
         return
-    if data.dtype.kind != "O":
-        data = np.array(data, dtype=var.dtype)  # the copy and cast __setitem__ makes
     var._put(data, *_whole(data.shape))
