@@ -8,6 +8,7 @@ boundaries, "previous valid level" is an index forward-fill with
 
 from __future__ import annotations
 
+import functools
 import weakref
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
@@ -715,11 +716,14 @@ def sorting_network(n: int) -> list[tuple[int, int]]:
     return _SORTING_NETWORKS.get(n) or _merge_network(n)
 
 
+@functools.cache
 def _merge_network(n: int) -> list[tuple[int, int]]:
     """Return the comparators of Batcher's odd-even merge sort for `n` wires, in order.
 
     Built for the next power of two; comparators touching a wire ``>= n`` are dropped, which
-    is exact for `n` inputs (the missing wires act as +inf and never move).
+    is exact for `n` inputs (the missing wires act as +inf and never move). Built once per
+    size (a Python loop over ~100 comparators that every moving-median call needed), and
+    shared like the fixed networks above: callers only iterate over it.
     """
     size = 1
     while size < n:
