@@ -310,8 +310,34 @@ def _odd_batch():
                         extra=extra, attrs=b.attrs)
 
 
-def test_direct_writer_byte_identical_to_xarray(tmp_path, monkeypatch):
-    """write_netcdf issues netCDF4 calls itself; the file must equal xarray's to_netcdf."""
+def _same_content(a, b):
+    """Two NetCDF files hold the same dataset: decoded, raw, attributes and encodings."""
+    for kw in ({}, {"decode_cf": False, "mask_and_scale": False}):
+        with xr.open_dataset(a, **kw) as da, xr.open_dataset(b, **kw) as db:
+            da.load()
+            db.load()
+            xr.testing.assert_identical(da, db)  # values, dtypes, dims, attrs, var order
+            assert list(da.variables) == list(db.variables)
+            for name in da.variables:
+                ea, eb = ({k: v for k, v in d[name].encoding.items() if k != "source"}
+                          for d in (da, db))
+                np.testing.assert_equal(ea, eb, err_msg=name)  # NaN fill == NaN fill
+    with netCDF4.Dataset(a) as na, netCDF4.Dataset(b) as nb:  # independent reader
+        assert na.data_model == nb.data_model == "NETCDF4"
+        assert {d: len(x) for d, x in na.dimensions.items()} == {
+            d: len(x) for d, x in nb.dimensions.items()}
+        for name, va in na.variables.items():
+            vb = nb.variables[name]
+            assert va.dtype == vb.dtype and va.dimensions == vb.dimensions, name
+            assert va.filters() == vb.filters() and va.chunking() == vb.chunking(), name
+            np.testing.assert_equal({k: va.getncattr(k) for k in va.ncattrs()},
+                                    {k: vb.getncattr(k) for k in vb.ncattrs()}, err_msg=name)
+
+
+def test_direct_writer_same_content_as_xarray(tmp_path, monkeypatch):
+    """write_netcdf issues netCDF4 calls itself; its file must hold what xarray's to_netcdf
+    writes (not byte for byte: it defines all variables before writing any data), and the
+    same batch must always give the same bytes."""
     from qcflag.io import netcdf
     from qcflag.pipeline import flag_batch, flagged_columns
 
@@ -324,7 +350,9 @@ def test_direct_writer_byte_identical_to_xarray(tmp_path, monkeypatch):
         direct = write_netcdf(batch, tmp_path / f"d{i}.nc", added=add, history=HIST)
         to_dataset(batch, added=add, history=HIST).to_netcdf(
             tmp_path / f"x{i}.nc", engine="netcdf4", format="NETCDF4")
-        assert direct.read_bytes() == (tmp_path / f"x{i}.nc").read_bytes(), i
+        _same_content(direct, tmp_path / f"x{i}.nc")
+        again = write_netcdf(batch, tmp_path / f"again{i}.nc", added=add, history=HIST)
+        assert direct.read_bytes() == again.read_bytes(), i  # deterministic
     # a column the direct writer does not handle (datetime without units) goes to xarray
     batch = b.select([0, 1])
     prof = batch.profiles.copy()
@@ -338,6 +366,30 @@ def test_direct_writer_byte_identical_to_xarray(tmp_path, monkeypatch):
     a = write_netcdf(odd, tmp_path / "odd.nc", history=HIST)
     to_dataset(odd, history=HIST).to_netcdf(tmp_path / "oddx.nc", engine="netcdf4")
     assert a.read_bytes() == (tmp_path / "oddx.nc").read_bytes()
+
+
+def test_same_content_check_sees_a_changed_file(tmp_path):
+    """_same_content must fail on a changed value, attribute or fill value."""
+    b = read_csv(CANONICAL)
+    ref = write_netcdf(b, tmp_path / "ref.nc", history=HIST)
+    edits = {
+        "value": lambda nc: nc["temperature"].__setitem__(0, 99.0),
+        "attribute": lambda nc: nc["temperature"].setncattr("units", "K"),
+        "global": lambda nc: nc.setncattr("title", "changed"),
+    }
+    for what, edit in edits.items():
+        p = tmp_path / f"{what}.nc"
+        p.write_bytes(ref.read_bytes())
+        with netCDF4.Dataset(p, "a") as nc:
+            edit(nc)
+        with pytest.raises(AssertionError):
+            _same_content(ref, p)
+    fill = tmp_path / "fill.nc"  # same values and attributes, another _FillValue encoding
+    ds = to_dataset(b, history=HIST)
+    ds["salinity"].encoding["_FillValue"] = -999.0
+    ds.to_netcdf(fill, engine="netcdf4", format="NETCDF4")
+    with pytest.raises(AssertionError):
+        _same_content(ref, fill)
 
 
 def _same_batch(a, b):
