@@ -35,6 +35,7 @@ digit rollover, stuck value, flat line, density inversion, the shape statistics)
 
 from __future__ import annotations
 
+import copy
 import hashlib
 import importlib.resources
 import re
@@ -251,32 +252,74 @@ def load_rules(rules: str | Path | RuleSet | None = None) -> RuleSet:
     Returns
     -------
     RuleSet
+        A fresh copy: changing it does not change what later calls return.
 
     Raises
     ------
     RuleSetError
         If the file is missing or malformed; the message names the file and line.
+
+    Notes
+    -----
+    Parsing and validating a rule set costs a few milliseconds, as much as checking a few
+    thousand levels, so each process keeps the parsed sets (see :func:`_shared_rules`); a
+    rule file is still read on every call and parsed again when its text changed.
     """
+    if isinstance(rules, RuleSet):
+        return rules
+    return copy.deepcopy(_shared_rules(rules))
+
+
+_PARSED: dict[tuple[Any, ...], tuple[RuleSet, tuple[CheckSpec, ...]]] = {}
+_PARSED_MAX = 8
+
+
+def _shared_rules(rules: str | Path | RuleSet | None) -> RuleSet:
+    """Return the parsed rule set shared within the process (read it, never change it).
+
+    :func:`run_checks` and :func:`qcflag.scale.flag_files_parallel` use this to skip the
+    copy :func:`load_rules` makes. Parsed sets are kept per process, keyed on the built-in
+    name or the file's path as given and its text (so an edited file is parsed again, even
+    within the file system's time resolution), and on the registered checks (a plug-in
+    registered later, or removed, gives a new parse). At most ``_PARSED_MAX`` sets are kept.
+    """
+    from qcflag.checks.registry import available_checks
+
     if isinstance(rules, RuleSet):
         return rules
     if rules is None:
         rules = "standard"
+    path: Path | None = None
     if isinstance(rules, str) and rules in BUILTIN_RULE_SETS:
+        source: tuple[Any, ...] = ("built-in", rules)
+        text: str | None = None
+    else:
+        path = Path(rules)
+        if not path.is_file():
+            raise RuleSetError(
+                f"{path}: no such rule-set file (give {' or '.join(BUILTIN_RULE_SETS)}, or "
+                "the path of a TOML file)"
+            )
+        try:
+            text = path.read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise RuleSetError(f"{path}: cannot read the rule set ({exc})") from None
+        source = ("file", path, text)
+    specs = available_checks()
+    key = (source, tuple((n, id(spec)) for n, spec in specs.items()))
+    found = _PARSED.get(key)
+    if found is not None:
+        return found[0]
+    if path is None or text is None:
         res = importlib.resources.files("qcflag.rulesets").joinpath(f"{rules}.toml")
-        text = res.read_text(encoding="utf-8")
-        return _parse(text, where=f"built-in rule set {rules!r}", path=None,
-                      default_name=rules)
-    path = Path(rules)
-    if not path.is_file():
-        raise RuleSetError(
-            f"{path}: no such rule-set file (give {' or '.join(BUILTIN_RULE_SETS)}, or the "
-            "path of a TOML file)"
-        )
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise RuleSetError(f"{path}: cannot read the rule set ({exc})") from None
-    return _parse(text, where=str(path), path=path, default_name=path.stem)
+        parsed = _parse(res.read_text(encoding="utf-8"),
+                        where=f"built-in rule set {rules!r}", path=None, default_name=str(rules))
+    else:
+        parsed = _parse(text, where=str(path), path=path, default_name=path.stem)
+    while len(_PARSED) >= _PARSED_MAX:
+        del _PARSED[next(iter(_PARSED))]  # the oldest
+    _PARSED[key] = parsed, tuple(specs.values())  # the specs stay alive: ids not reused
+    return parsed
 
 
 def run_checks(batch: ProfileBatch, rules: str | Path | RuleSet | None = None) -> CheckTable:
@@ -304,7 +347,7 @@ def run_checks(batch: ProfileBatch, rules: str | Path | RuleSet | None = None) -
     flag policy). Checks still compute their statistic at an excluded level itself where
     they can, so the feature stays informative.
     """
-    rs = load_rules(rules)
+    rs = _shared_rules(rules)  # only read here: no copy
     n = batch.n_levels
     excluded = {v: np.zeros(n, dtype=bool) for v in LEVEL_VARIABLES}
     results: dict[tuple[str, str], CheckResult] = {}

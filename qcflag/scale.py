@@ -240,37 +240,17 @@ def _resolve_model(model: Any) -> Any:
     return _MODEL_CACHE[key]
 
 
-_RULES_CACHE: dict[tuple[Any, ...], Any] = {}
-
-
 def _resolve_rules(rules: Any) -> Any:
-    """Parse a rule set named or given as a path once per process (tasks keep it).
+    """Parse a rule set named or given as a path once per process (tasks share it).
 
-    Parsing and validating the standard set costs ~10 ms, as much as flagging a few
-    thousand levels; a worker flagging many small files would pay it for every file. The
-    cache is keyed on the built-in name, or the file's path, modification time and size,
-    and on the registered checks (a plug-in registered later gives a new parse).
+    Parsing and validating the standard set costs a few milliseconds, as much as flagging
+    a few thousand levels; a worker flagging many small files would pay it for every file.
+    :func:`qcflag.rules._shared_rules` keeps the parsed sets (keyed on the built-in name, or
+    the file's path and text, and on the registered checks); tasks only read them.
     """
-    from qcflag.checks.registry import available_checks
-    from qcflag.rules import BUILTIN_RULE_SETS, RuleSet, load_rules
+    from qcflag.rules import _shared_rules
 
-    if isinstance(rules, RuleSet):
-        return rules
-    name = "standard" if rules is None else rules
-    if isinstance(name, str) and name in BUILTIN_RULE_SETS:
-        source: tuple[Any, ...] = ("built-in", name)
-    else:
-        try:
-            p = Path(name)
-            st = p.stat()
-        except (OSError, TypeError, ValueError):
-            return load_rules(rules)  # it raises the proper error
-        source = (str(p.resolve()), st.st_mtime_ns, st.st_size)
-    key = (source, tuple((n, id(spec)) for n, spec in available_checks().items()))
-    if key not in _RULES_CACHE:
-        _RULES_CACHE.clear()
-        _RULES_CACHE[key] = load_rules(rules)
-    return _RULES_CACHE[key]
+    return _shared_rules(rules)
 
 
 def flag_one_file(

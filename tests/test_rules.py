@@ -200,3 +200,68 @@ def test_every_registered_check_documents_its_params():
         if spec.params is not None:
             for key in spec.required:
                 assert key in spec.params
+
+
+def test_rule_sets_parsed_once_per_process_and_handed_out_as_copies(tmp_path, monkeypatch):
+    """load_rules parses a set once per process; callers get copies they may change."""
+    import copy
+    import os
+
+    from qcflag import rules as rules_mod
+
+    monkeypatch.setattr(rules_mod, "_PARSED", {})  # a fresh cache for this test
+    parsed = []
+    real_parse = rules_mod._parse
+
+    def counting_parse(text, **kw):
+        parsed.append(kw["where"])
+        return real_parse(text, **kw)
+
+    monkeypatch.setattr(rules_mod, "_parse", counting_parse)
+    a, b = load_rules(None), load_rules("standard")
+    assert len(parsed) == 1 and a == b and a is not b
+    assert a.steps is not b.steps and a.steps[0].params is not b.steps[0].params
+    ref = copy.deepcopy(a)
+    a.steps.clear()  # callers' changes stay theirs
+    b.steps[0].params["changed"] = True
+    b.skipped.append("x")
+    assert load_rules(None) == ref and len(parsed) == 1
+    batch = make_batch({"pressure": [10, 20, 30, 40], "temperature": [10.0, 25.0, 10.1, 10.2]})
+    t1, t2 = run_checks(batch), run_checks(batch, "standard")  # the shared set, no copy
+    assert len(parsed) == 1
+    assert list(t1.results) == list(t2.results) == list(run_checks(batch, ref).results)
+    load_rules("coastal")
+    assert len(parsed) == 2
+
+    # a file is read on every call and parsed again only when its text changed
+    f = _write(tmp_path, GOOD)
+    first = load_rules(f)
+    assert load_rules(str(f)) == first and len(parsed) == 3
+    st = f.stat()
+    f.write_text(GOOD.replace("shallow_limit = 6.0", "shallow_limit = 7.0"))  # same size
+    os.utime(f, ns=(st.st_atime_ns, st.st_mtime_ns))  # and the same time stamp
+    edited = load_rules(f)
+    assert len(parsed) == 4 and edited.steps[0].params["shallow_limit"] == 7.0
+    f.write_text(GOOD)
+    assert load_rules(f) == first and len(parsed) == 4
+
+    # a check registered later gives a new parse (a rule file may name it)
+    def always_pass(batch, *, variable):
+        return CheckResult(np.zeros(batch.n_levels), np.ones(batch.n_levels, np.int8))
+
+    register_check("cache_probe_test", always_pass, params={})
+    try:
+        assert load_rules(None) == ref and len(parsed) == 5
+    finally:
+        CHECKS.pop("cache_probe_test", None)
+    assert load_rules(None) == ref and len(parsed) == 5  # registry as before: cached entry
+
+    # errors are not kept; the cache stays bounded
+    for _ in range(2):
+        with pytest.raises(RuleSetError, match="no such rule-set file"):
+            load_rules(tmp_path / "missing.toml")
+    for k in range(rules_mod._PARSED_MAX + 2):
+        g = tmp_path / f"r{k}.toml"
+        g.write_text(GOOD.replace("6.0", f"{6 + k}.0"))
+        assert load_rules(g).steps[0].params["shallow_limit"] == 6 + k
+    assert len(rules_mod._PARSED) == rules_mod._PARSED_MAX
