@@ -22,7 +22,7 @@ from __future__ import annotations
 import contextlib
 import os
 import time
-from collections.abc import Iterable, Iterator, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -38,6 +38,8 @@ __all__ = [
     "DEFAULT_CHUNK_LEVELS",
     "ArchiveSummary",
     "FileSummary",
+    "cruise_groups",
+    "flag_file_group",
     "flag_files_parallel",
     "local_cluster",
     "warm_worker",
@@ -200,26 +202,48 @@ def flag_batch_chunked(
     grade_counts : dict of str to dict of str to int
         Per variable, levels given grade ``"1"`` ... ``"4"`` and ``"missing"``.
     """
+    added, grades = _flag_in_chunks(batch, chunk_levels=chunk_levels, model=model,
+                                    rules=rules, scheme=scheme, probabilities=probabilities,
+                                    **options)
+    return added, _tally(grades)
+
+
+def _tally(grades: Mapping[str, np.ndarray]) -> dict[str, dict[str, int]]:
+    """Levels per grade ``"1"`` ... ``"4"`` and ``"missing"`` (grade 0), per variable."""
+    out = {}
+    for var, g in grades.items():
+        c = np.bincount(np.asarray(g, dtype=np.int64), minlength=5)[:5]
+        out[var] = {**{str(k): int(c[k]) for k in range(1, 5)}, "missing": int(c[0])}
+    return out
+
+
+def _flag_in_chunks(
+    batch: ProfileBatch,
+    *,
+    chunk_levels: int = DEFAULT_CHUNK_LEVELS,
+    model: Any = None,
+    rules: Any = None,
+    scheme: str = "argo",
+    probabilities: bool = False,
+    **options: Any,
+) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
+    """Flag `batch` in chunks of whole cruises; return its added columns and level grades."""
     from qcflag.pipeline import flag_batch, flagged_columns
 
-    out_scheme = scheme
     parts: list[Mapping[str, Any]] = []
-    counts: dict[str, np.ndarray] = {}
+    grades: dict[str, list[np.ndarray]] = {}
     chunks = [batch] if batch.n_levels <= chunk_levels else batch.iter_chunks(chunk_levels)
     for chunk in chunks:
-        result = flag_batch(chunk, model=model, rules=rules, scheme=out_scheme, **options)
-        parts.append(flagged_columns(chunk, result, scheme=out_scheme,
+        result = flag_batch(chunk, model=model, rules=rules, scheme=scheme, **options)
+        parts.append(flagged_columns(chunk, result, scheme=scheme,
                                      probabilities=probabilities))
         for var, vf in result.variables.items():
-            acc = counts.setdefault(var, np.zeros(5, dtype=np.int64))
-            acc += np.bincount(np.asarray(vf.grade, dtype=np.int64), minlength=5)[:5]
+            grades.setdefault(var, []).append(np.asarray(vf.grade))
     if not parts:  # an empty file: flag it whole so the columns exist
-        result = flag_batch(batch, model=model, rules=rules, scheme=out_scheme, **options)
-        parts.append(flagged_columns(batch, result, scheme=out_scheme,
+        result = flag_batch(batch, model=model, rules=rules, scheme=scheme, **options)
+        parts.append(flagged_columns(batch, result, scheme=scheme,
                                      probabilities=probabilities))
-    tally = {var: {**{str(g): int(c[g]) for g in range(1, 5)}, "missing": int(c[0])}
-             for var, c in counts.items()}
-    return _concat_added(parts), tally
+    return _concat_added(parts), {v: np.concatenate(g) for v, g in grades.items()}
 
 
 _MODEL_CACHE: dict[tuple[str, int, int], Any] = {}
@@ -311,6 +335,102 @@ def flag_one_file(
             n_profiles, n_levels = batch.n_profiles, batch.n_levels
     return FileSummary(str(path), str(out_path), n_profiles, n_levels, grade_counts,
                        time.perf_counter() - t0)
+
+
+def flag_file_group(
+    paths: Sequence[str | os.PathLike[str]],
+    out_paths: Sequence[str | os.PathLike[str]],
+    *,
+    chunk_levels: int = DEFAULT_CHUNK_LEVELS,
+    overwrite: bool = False,
+    history: str | None = None,
+    model: Any = None,
+    probabilities: bool = False,
+    **options: Any,
+) -> list[FileSummary]:
+    """Flag files that share cruises as one batch, then write each file's own output.
+
+    The track check and the cruise-relative features look at a whole cruise; when a cruise
+    is spread over several files (one file per profile is common for floats), flagging the
+    files one by one would show them only part of it. Here the files are read, joined in
+    the given order, flagged together (chunks never split a cruise) and written back one
+    output per input, each with its own profiles and levels.
+
+    Parameters
+    ----------
+    paths, out_paths : sequence of path-like
+        Inputs and their outputs, in the same order.
+    chunk_levels, overwrite, history, model, probabilities, **options
+        As for :func:`flag_one_file`.
+
+    Returns
+    -------
+    list of FileSummary
+        One per input, in order (each with the group's time).
+    """
+    from qcflag.io import iter_batches, write
+    from qcflag.profiles import ProfileBatch
+
+    t0 = time.perf_counter()
+    model = _resolve_model(model)
+    options["rules"] = _resolve_rules(options.get("rules"))
+    with _local_file_locks():
+        batches = [ProfileBatch.concat([b for _, b in iter_batches([Path(p)])])
+                   for p in paths]
+        whole = ProfileBatch.concat(batches)
+        added, grades = _flag_in_chunks(whole, chunk_levels=chunk_levels, model=model,
+                                        probabilities=probabilities, **options)
+        from qcflag.io import AddedColumn
+
+        ends = np.cumsum([b.n_levels for b in batches])
+        done = []
+        for batch, src, dst, stop in zip(batches, paths, out_paths, ends, strict=True):
+            start = stop - batch.n_levels
+            own = {k: AddedColumn(np.asarray(c.values)[start:stop], dict(c.attrs), c.parent)
+                   for k, c in added.items()}
+            write(batch, Path(dst), added=own, overwrite=overwrite, history=history)
+            counts = _tally({v: g[start:stop] for v, g in grades.items()})
+            done.append((str(src), str(dst), batch.n_profiles, batch.n_levels, counts))
+    seconds = time.perf_counter() - t0
+    return [FileSummary(*d, seconds) for d in done]
+
+
+def cruise_groups(paths: Sequence[str | os.PathLike[str]]) -> list[list[int]]:
+    """Group input files that share a cruise (directly or through other files).
+
+    Parameters
+    ----------
+    paths : sequence of path-like
+        Input files; each is read once to find its cruises.
+
+    Returns
+    -------
+    list of list of int
+        Indices into `paths`: each group sorted, the groups ordered by their first file.
+        A file whose cruises no other file has is a group of its own.
+    """
+    from qcflag.io import iter_batches
+
+    parent = list(range(len(paths)))
+
+    def root(i: int) -> int:
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    first: dict[str, int] = {}
+    for i, p in enumerate(paths):
+        for _, batch in iter_batches([Path(p)]):
+            for cruise in batch.profiles["cruise"].astype(str).unique():
+                j = first.setdefault(cruise, i)
+                a, b = root(i), root(j)
+                if a != b:
+                    parent[max(a, b)] = min(a, b)
+    groups: dict[int, list[int]] = {}
+    for i in range(len(paths)):
+        groups.setdefault(root(i), []).append(i)
+    return sorted(groups.values(), key=lambda g: g[0])
 
 
 def _local_file_locks() -> contextlib.AbstractContextManager[Any]:
@@ -443,17 +563,32 @@ def warm_worker(rules: Any = None) -> bool:
     return True
 
 
+def _run_unit(pairs: list[tuple[Path, Path]], unit: list[int],
+              task_options: dict[str, Any]) -> list[FileSummary]:
+    """Flag one unit of work: a single file, or files that share cruises (joined)."""
+    if len(unit) == 1:
+        src, dst = pairs[unit[0]]
+        return [flag_one_file(str(src), str(dst), **task_options)]
+    return flag_file_group([str(pairs[i][0]) for i in unit], [str(pairs[i][1]) for i in unit],
+                           **task_options)
+
+
 def _run_serial(
-    pairs: Iterable[tuple[Path, Path]], task_options: dict[str, Any], progress: Any
-) -> Iterator[FileSummary]:
-    for src, dst in pairs:
-        yield flag_one_file(src, dst, **task_options)
+    pairs: list[tuple[Path, Path]], units: list[list[int]], task_options: dict[str, Any],
+    progress: Any,
+) -> dict[int, FileSummary]:
+    results: dict[int, FileSummary] = {}
+    for unit in units:
+        results.update(zip(unit, _run_unit(pairs, unit, task_options), strict=True))
         if progress is not None:
-            progress.advance(0)
+            for _ in unit:
+                progress.advance(0)
+    return results
 
 
 def _run_dask(
     pairs: list[tuple[Path, Path]],
+    units: list[list[int]],
     task_options: dict[str, Any],
     client: Any,
     max_in_flight: int,
@@ -462,7 +597,7 @@ def _run_dask(
     from distributed import as_completed
 
     results: dict[int, FileSummary] = {}
-    # largest inputs first (longest-processing-time order), so the workers finish together
+    # largest units first (longest-processing-time order), so the workers finish together
     # instead of one flagging a big file alone at the end; results keep the input order
     sizes = []
     for src, _ in pairs:
@@ -470,18 +605,19 @@ def _run_dask(
             sizes.append(src.stat().st_size)
         except OSError:
             sizes.append(0)
-    order = sorted(range(len(pairs)), key=lambda i: -sizes[i])
-    todo = ((i, pairs[i]) for i in order)
+    order = sorted(range(len(units)), key=lambda u: -sum(sizes[i] for i in units[u]))
+    todo = iter(order)
     futures = {}
 
     def submit_next() -> bool:
         try:
-            i, (src, dst) = next(todo)
+            u = next(todo)
         except StopIteration:
             return False
-        fut = client.submit(flag_one_file, str(src), str(dst), **task_options,
-                            key=f"qcflag-file-{i}-{src.name}", pure=False)
-        futures[fut] = i
+        first = pairs[units[u][0]][0]
+        fut = client.submit(_run_unit, pairs, units[u], task_options,
+                            key=f"qcflag-file-{units[u][0]}-{first.name}", pure=False)
+        futures[fut] = u
         return True
 
     for _ in range(max_in_flight):
@@ -489,16 +625,17 @@ def _run_dask(
             break
     pending = as_completed(list(futures))
     for fut in pending:
-        i = futures.pop(fut)
+        u = futures.pop(fut)
         try:
-            results[i] = fut.result()
+            results.update(zip(units[u], fut.result(), strict=True))
         except BaseException:
             for other in list(futures):
                 other.cancel()
             raise
         fut.release()
         if progress is not None:
-            progress.advance(0)
+            for _ in units[u]:
+                progress.advance(0)
         if submit_next():
             new = next(reversed(futures))
             pending.add(new)
@@ -516,6 +653,7 @@ def flag_files_parallel(
     overwrite: bool = False,
     history: str | None = None,
     model: Any = None,
+    join_cruises: bool = False,
     **options: Any,
 ) -> ArchiveSummary:
     """Flag many files on dask.distributed, streaming one file per task.
@@ -545,6 +683,11 @@ def flag_files_parallel(
         once here, so every task writes the same line whatever worker runs it and when.
     model : OrdinalModel or path-like, optional
         Fitted model, or the path of a saved one (each worker loads it once).
+    join_cruises : bool, default=False
+        Flag files that share a cruise together, in one task (:func:`flag_file_group`), so
+        the track check and the cruise-relative features see the whole cruise; each file
+        still gets its own output. The inputs are read once more beforehand to find their
+        cruises (:func:`cruise_groups`).
     **options
         Passed to :func:`qcflag.pipeline.flag_batch` (``rules``, ``scheme``, ``caution``,
         ``probabilities``...).
@@ -577,17 +720,21 @@ def flag_files_parallel(
     history = history_line(history)
     task_options = dict(options, chunk_levels=chunk_levels, overwrite=overwrite,
                         history=history, model=model)
+    units = (cruise_groups([src for src, _ in pairs]) if join_cruises
+             else [[i] for i in range(len(pairs))])
     bar = _progress(len(pairs), progress)
     try:
         if workers == 1 and not scheduler:
-            files = list(_run_serial(pairs, task_options, bar))
-            summary = ArchiveSummary(files, workers=1, scheduler=None)
+            results = _run_serial(pairs, units, task_options, bar)
+            summary = ArchiveSummary([results[i] for i in range(len(pairs))], workers=1,
+                                     scheduler=None)
         else:
             client, cluster = _client(workers, scheduler)
             try:
                 n = len(client.scheduler_info(n_workers=-1)["workers"]) or workers
                 client.run(warm_worker, options.get("rules"))  # before the first task
-                results = _run_dask(pairs, task_options, client, max(2 * n, 2), bar)
+                results = _run_dask(pairs, units, task_options, client, max(2 * n, 2),
+                                    bar)
                 summary = ArchiveSummary([results[i] for i in range(len(pairs))], workers=n,
                                          scheduler=scheduler or client.scheduler.address)
             finally:

@@ -48,6 +48,11 @@ def flag_cmd(
         min=1)] = None,
     scheduler: Annotated[str | None, typer.Option(
         help="Address of an existing dask scheduler (tcp://host:port) to run on.")] = None,
+    join_cruises: Annotated[bool, typer.Option(
+        "--join-cruises",
+        help="Flag files that share a cruise together (e.g. one file per float profile), so "
+             "the track check and the cruise comparisons see the whole cruise; each file "
+             "still gets its own output.")] = False,
 ) -> None:
     """Flag every level of INPUTS and write them with automatic flag columns added.
 
@@ -55,14 +60,14 @@ def flag_cmd(
     temperature and salinity (and pressure where checked). Automated flags assist expert
     QC and do not replace it.
     """
-    if workers is not None or scheduler is not None:
+    if workers is not None or scheduler is not None or join_cruises:
         from qcflag.scale import flag_files_parallel  # lazy: dask only when asked for
 
         summary = flag_files_parallel(
             inputs, out, workers=workers or 1, scheduler=scheduler, model=model, rules=rules,
             scheme=scheme, overwrite=overwrite, caution=caution, target_recall=target_recall,
             review_budget=review_budget, false_alarm_rate=false_alarm_rate,
-            probabilities=probabilities,
+            probabilities=probabilities, join_cruises=join_cruises,
         )
         typer.echo(summary.to_json())
         return
