@@ -407,7 +407,8 @@ def cruise_groups(paths: Sequence[str | os.PathLike[str]]) -> list[list[int]]:
     -------
     list of list of int
         Indices into `paths`: each group sorted, the groups ordered by their first file.
-        A file whose cruises no other file has is a group of its own.
+        A file whose cruises no other file has is a group of its own; an empty cruise name
+        joins nothing.
     """
     from qcflag.io import iter_batches
 
@@ -423,6 +424,8 @@ def cruise_groups(paths: Sequence[str | os.PathLike[str]]) -> list[list[int]]:
     for i, p in enumerate(paths):
         for _, batch in iter_batches([Path(p)]):
             for cruise in batch.profiles["cruise"].astype(str).unique():
+                if not cruise.strip():  # no cruise name: nothing to join on
+                    continue
                 j = first.setdefault(cruise, i)
                 a, b = root(i), root(j)
                 if a != b:

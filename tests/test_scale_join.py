@@ -129,3 +129,17 @@ def test_cli_join_cruises(split_cruise, tmp_path):
                                    "--join-cruises"])
     assert res.exit_code == 0, res.output
     assert sorted(p.name for p in (tmp_path / "o").iterdir()) == sorted(f.name for f in files)
+
+
+def test_cruise_groups_ignore_empty_cruise_names(tmp_path):
+    cfg = SimulationConfig(casts_per_cruise=2, floats_per_cruise=0, max_cast_pressure=300)
+    b = simulate_archive(1, seed=6, config=cfg)
+    b.profiles["cruise"] = ""
+    paths = [tmp_path / "a.nc", tmp_path / "b.nc"]
+    write(b.select([0]), paths[0])
+    write(b.select([1]), paths[1])
+    names = {str(read_file(p).profiles["cruise"].iloc[0]) for p in paths}
+    groups = cruise_groups(paths)
+    # the reader names the cruise after the file when the file has none; either way two
+    # files without a shared, non-empty cruise name are not joined
+    assert groups == [[0], [1]], names
