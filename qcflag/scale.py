@@ -566,14 +566,14 @@ def warm_worker(rules: Any = None) -> bool:
     return True
 
 
-def _run_unit(pairs: list[tuple[Path, Path]], unit: list[int],
+def _run_unit(unit_pairs: list[tuple[Path, Path]],
               task_options: dict[str, Any]) -> list[FileSummary]:
     """Flag one unit of work: a single file, or files that share cruises (joined)."""
-    if len(unit) == 1:
-        src, dst = pairs[unit[0]]
+    if len(unit_pairs) == 1:
+        src, dst = unit_pairs[0]
         return [flag_one_file(str(src), str(dst), **task_options)]
-    return flag_file_group([str(pairs[i][0]) for i in unit], [str(pairs[i][1]) for i in unit],
-                           **task_options)
+    return flag_file_group([str(src) for src, _ in unit_pairs],
+                           [str(dst) for _, dst in unit_pairs], **task_options)
 
 
 def _run_serial(
@@ -582,7 +582,8 @@ def _run_serial(
 ) -> dict[int, FileSummary]:
     results: dict[int, FileSummary] = {}
     for unit in units:
-        results.update(zip(unit, _run_unit(pairs, unit, task_options), strict=True))
+        results.update(zip(unit, _run_unit([pairs[i] for i in unit], task_options),
+                           strict=True))
         if progress is not None:
             for _ in unit:
                 progress.advance(0)
@@ -618,7 +619,7 @@ def _run_dask(
         except StopIteration:
             return False
         first = pairs[units[u][0]][0]
-        fut = client.submit(_run_unit, pairs, units[u], task_options,
+        fut = client.submit(_run_unit, [pairs[i] for i in units[u]], task_options,
                             key=f"qcflag-file-{units[u][0]}-{first.name}", pure=False)
         futures[fut] = u
         return True
