@@ -79,20 +79,6 @@ def _by_pressure(batch: ProfileBatch, variable: str, exclude: NDArray[np.bool_] 
     return CheckResult(stat, grade)
 
 
-def _spike_value(v2: NDArray[np.float64], v1: NDArray[np.float64], v3: NDArray[np.float64]
-                 ) -> NDArray[np.float64]:
-    """``|V2 - (V3 + V1)/2| - |(V3 - V1)/2|`` (new array; the inputs are not modified)."""
-    stat = np.add(v3, v1)
-    stat /= 2
-    np.subtract(v2, stat, out=stat)
-    np.abs(stat, out=stat)
-    half = np.subtract(v3, v1)
-    half /= 2
-    np.abs(half, out=half)
-    stat -= half
-    return stat
-
-
 def _gradient_value(v2: NDArray[np.float64], v1: NDArray[np.float64], v3: NDArray[np.float64]
                     ) -> NDArray[np.float64]:
     """``|V2 - (V3 + V1)/2|`` (new array; the inputs are not modified)."""
@@ -100,6 +86,17 @@ def _gradient_value(v2: NDArray[np.float64], v1: NDArray[np.float64], v3: NDArra
     stat /= 2
     np.subtract(v2, stat, out=stat)
     np.abs(stat, out=stat)
+    return stat
+
+
+def _spike_value(v2: NDArray[np.float64], v1: NDArray[np.float64], v3: NDArray[np.float64]
+                 ) -> NDArray[np.float64]:
+    """``|V2 - (V3 + V1)/2| - |(V3 - V1)/2|`` (new array; the inputs are not modified)."""
+    stat = _gradient_value(v2, v1, v3)
+    half = np.subtract(v3, v1)
+    half /= 2
+    np.abs(half, out=half)
+    stat -= half
     return stat
 
 
