@@ -218,14 +218,8 @@ def _tally(grades: Mapping[str, np.ndarray]) -> dict[str, dict[str, int]]:
 
 
 def _flag_in_chunks(
-    batch: ProfileBatch,
-    *,
-    chunk_levels: int = DEFAULT_CHUNK_LEVELS,
-    model: Any = None,
-    rules: Any = None,
-    scheme: str = "argo",
-    probabilities: bool = False,
-    **options: Any,
+    batch: ProfileBatch, *, chunk_levels: int, scheme: str = "argo",
+    probabilities: bool = False, **options: Any,
 ) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
     """Flag `batch` in chunks of whole cruises; return its added columns and level grades."""
     from qcflag.pipeline import flag_batch, flagged_columns
@@ -234,13 +228,13 @@ def _flag_in_chunks(
     grades: dict[str, list[np.ndarray]] = {}
     chunks = [batch] if batch.n_levels <= chunk_levels else batch.iter_chunks(chunk_levels)
     for chunk in chunks:
-        result = flag_batch(chunk, model=model, rules=rules, scheme=scheme, **options)
+        result = flag_batch(chunk, scheme=scheme, **options)
         parts.append(flagged_columns(chunk, result, scheme=scheme,
                                      probabilities=probabilities))
         for var, vf in result.variables.items():
             grades.setdefault(var, []).append(np.asarray(vf.grade))
     if not parts:  # an empty file: flag it whole so the columns exist
-        result = flag_batch(batch, model=model, rules=rules, scheme=scheme, **options)
+        result = flag_batch(batch, scheme=scheme, **options)
         parts.append(flagged_columns(batch, result, scheme=scheme,
                                      probabilities=probabilities))
     return _concat_added(parts), {v: np.concatenate(g) for v, g in grades.items()}
@@ -368,7 +362,7 @@ def flag_file_group(
     list of FileSummary
         One per input, in order (each with the group's time).
     """
-    from qcflag.io import iter_batches, write
+    from qcflag.io import AddedColumn, iter_batches, write
     from qcflag.profiles import ProfileBatch
 
     t0 = time.perf_counter()
@@ -380,8 +374,6 @@ def flag_file_group(
         whole = ProfileBatch.concat(batches)
         added, grades = _flag_in_chunks(whole, chunk_levels=chunk_levels, model=model,
                                         probabilities=probabilities, **options)
-        from qcflag.io import AddedColumn
-
         ends = np.cumsum([b.n_levels for b in batches])
         done = []
         for batch, src, dst, stop in zip(batches, paths, out_paths, ends, strict=True):
