@@ -14,7 +14,7 @@ _Inputs = Annotated[
     typer.Argument(help="Manually flagged profile files (CSV or NetCDF); never modified.",
                    dir_okay=False),
 ]
-_ESTIMATORS = ("boosted", "logistic-at", "logistic-it", "nominal")
+_ESTIMATORS = ("boosted", "boosted-oblivious", "logistic-at", "logistic-it", "nominal")
 
 
 @app.command("train", rich_help_panel="Learning")
@@ -24,7 +24,8 @@ def train_cmd(
     model: Annotated[Path, typer.Option(help="Model file to write (e.g. archive.qcm).",
                                         dir_okay=False)],
     estimator: Annotated[str, typer.Option(
-        help="boosted (cumulative gradient boosting), logistic-at, logistic-it (ordinal "
+        help="boosted (cumulative gradient boosting), boosted-oblivious (the same over "
+             "oblivious trees, faster prediction), logistic-at, logistic-it (ordinal "
              "logistic) or nominal (multinomial, ignores the order).")] = "boosted",
     folds: Annotated[int, typer.Option(help="Cross-validation folds (whole cruises).",
                                        min=2)] = 5,

@@ -15,6 +15,9 @@ Models
     Frank & Hall (2001) cumulative binary decomposition: one gradient-boosted tree model per
     threshold estimates ``P(y > k)``; the cumulative probabilities are made monotone and
     differenced into class probabilities.
+:class:`CumulativeObliviousClassifier`
+    The same decomposition over boosted oblivious (symmetric) trees of our own
+    (:mod:`qcflag.learn.oblivious`), whose prediction is branch-free.
 :class:`NominalLogistic`
     Multinomial logistic regression that ignores the order (baseline).
 :class:`AlwaysGood`
@@ -60,6 +63,13 @@ import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from qcflag.learn.oblivious import (
+    ObliviousEnsemble,
+    ObliviousForest,
+    bin_codes,
+    bin_edges,
+    fit_oblivious,
+)
 from qcflag.learn.trees import TreeEnsemble, TreeForest, expit
 
 if TYPE_CHECKING:
@@ -70,6 +80,7 @@ __all__ = [
     "GRADES",
     "AlwaysGood",
     "CumulativeBoostedClassifier",
+    "CumulativeObliviousClassifier",
     "NominalLogistic",
     "OrdinalLogistic",
     "RulesOnly",
@@ -686,7 +697,96 @@ class NominalLogistic(_GradeEstimator):
 
 
 # --------------------------------------------------------------------------- boosted
-class CumulativeBoostedClassifier(_GradeEstimator):
+class _CumulativeTrees(_GradeEstimator):
+    """Frank & Hall cumulative decomposition shared by the boosted-tree models.
+
+    A subclass fits one binary log-odds model per threshold between consecutive seen
+    classes (``_fit_thresholds``) and names the evaluator that scores them all at once
+    (``_evaluator``); this class turns the scores into monotone cumulative and class
+    probabilities (the rule is in :class:`CumulativeBoostedClassifier`'s docstring), sums
+    the attributions and stores the ensembles.
+    """
+
+    #: class of the per-threshold ensembles (``to_arrays``/``from_arrays``/``contributions``)
+    _ensemble_cls: ClassVar[Any]
+    ensembles_: list[Any]
+
+    def _fit_thresholds(
+        self, X: NDArray[np.float64], y_idx: NDArray[np.int64], sw: NDArray[np.float64],
+        thresholds: NDArray[np.int64],
+    ) -> list[Any]:
+        """One ensemble per class index in `thresholds`, each estimating ``P(y > k)``."""
+        raise NotImplementedError
+
+    @staticmethod
+    def _evaluator(ensembles: list[Any]) -> Any:
+        """Object whose ``raw(X)`` gives every ensemble's log-odds, shape (n, n_ens)."""
+        raise NotImplementedError
+
+    def fit(self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None) -> Any:
+        """Fit one boosted model per threshold; `groups` is ignored."""
+        X, y = self._validate_fit(X, y)
+        y_idx = self._encode_labels(y)
+        sw = _class_sample_weight(y_idx, self.class_weight, self.classes_)
+        seen = np.flatnonzero(self.seen_)
+        self.ensembles_ = self._fit_thresholds(X, y_idx, sw, seen[:-1])
+        self._forest = self._evaluator(self.ensembles_) if self.ensembles_ else None
+        if seen.size > 1 and not self.ensembles_:  # no usable feature: class priors
+            self.seen_ = np.zeros_like(self.seen_)
+            self.seen_[int(np.bincount(y_idx).argmax())] = True
+        return self
+
+    def cumulative_proba(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Monotone ``P(y > k)`` per threshold between seen classes, shape (n, n_seen - 1)."""
+        X = self._validate_predict(X)
+        if not self.ensembles_:
+            return np.zeros((X.shape[0], 0))
+        forest = getattr(self, "_forest", None)
+        if forest is None:  # ensembles_ set by hand: build the evaluator without caching it
+            forest = self._evaluator(self.ensembles_)
+        gt = expit(forest.raw(X))
+        return np.minimum.accumulate(gt, axis=1)
+
+    def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Probability of each class, shape (n_samples, n_classes), rows sum to 1."""
+        gt = self.cumulative_proba(X)
+        n = gt.shape[0]
+        upper = np.hstack([np.ones((n, 1)), gt])  # P(y > previous)
+        lower = np.hstack([gt, np.zeros((n, 1))])  # P(y > this)
+        return self._pad(upper - lower)
+
+    def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
+        """Path attributions of the log-odds, summed over the thresholds."""
+        X = self._validate_predict(X)
+        out = np.zeros_like(X)
+        for e in self.ensembles_:
+            out += e.contributions(X)
+        return out
+
+    def _export(self) -> tuple[dict[str, Any], dict[str, NDArray[Any]]]:
+        meta, arrays = super()._export()
+        metas = []
+        for i, e in enumerate(self.ensembles_):
+            m, a = e.to_arrays(f"t{i}_")
+            metas.append(m)
+            arrays.update(a)
+        meta["ensembles"] = metas
+        return meta, arrays
+
+    @classmethod
+    def _restore(cls, meta: dict[str, Any], arrays: dict[str, NDArray[Any]]) -> Any:
+        est = super()._restore(meta, arrays)
+        est.ensembles_ = [cls._ensemble_cls.from_arrays(m, arrays, f"t{i}_")
+                          for i, m in enumerate(meta["ensembles"])]
+        if len(est.ensembles_) != max(int(np.sum(est.seen_)) - 1, 0):
+            raise ValueError("number of threshold models does not match the seen classes")
+        if any(e.n_features != est.n_features_in_ for e in est.ensembles_):
+            raise ValueError("threshold models do not match the feature count")
+        est._forest = cls._evaluator(est.ensembles_) if est.ensembles_ else None
+        return est
+
+
+class CumulativeBoostedClassifier(_CumulativeTrees):
     """Frank & Hall cumulative decomposition over gradient-boosted trees.
 
     For each threshold between consecutive seen classes ``k`` one
@@ -737,6 +837,7 @@ class CumulativeBoostedClassifier(_GradeEstimator):
     """
 
     _array_attrs = ("n_iter_",)
+    _ensemble_cls = TreeEnsemble
 
     def __init__(
         self,
@@ -759,22 +860,22 @@ class CumulativeBoostedClassifier(_GradeEstimator):
         self.random_state = random_state
         self.classes = classes
 
-    def fit(
-        self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None
-    ) -> CumulativeBoostedClassifier:
-        """Fit one boosted model per threshold; `groups` is ignored."""
+    @staticmethod
+    def _evaluator(ensembles: list[Any]) -> TreeForest:
+        return TreeForest(ensembles)
+
+    def _fit_thresholds(
+        self, X: NDArray[np.float64], y_idx: NDArray[np.int64], sw: NDArray[np.float64],
+        thresholds: NDArray[np.int64],
+    ) -> list[Any]:
         from sklearn.ensemble import HistGradientBoostingClassifier
 
-        X, y = self._validate_fit(X, y)
-        y_idx = self._encode_labels(y)
-        sw = _class_sample_weight(y_idx, self.class_weight, self.classes_)
-        seen = np.flatnonzero(self.seen_)
         # all-NaN columns carry nothing and trip HGB's binning; fit on the others
         usable = np.flatnonzero(~np.isnan(X).all(axis=0))
         Xu = X[:, usable] if usable.size < X.shape[1] else X
-        self.ensembles_ = []
+        ensembles = []
         n_iter = []
-        for k in seen[:-1] if usable.size else []:
+        for k in thresholds if usable.size else []:
             hgb = HistGradientBoostingClassifier(
                 max_iter=self.max_iter,
                 learning_rate=self.learning_rate,
@@ -786,62 +887,110 @@ class CumulativeBoostedClassifier(_GradeEstimator):
             )
             hgb.fit(Xu, (y_idx > k).astype(np.int64), sample_weight=sw)
             n_iter.append(hgb.n_iter_)
-            self.ensembles_.append(
+            ensembles.append(
                 TreeEnsemble.from_sklearn(hgb, feature_map=usable, n_features=X.shape[1]))
         self.n_iter_ = np.array(n_iter or [0], dtype=np.int64)
-        self._forest = TreeForest(self.ensembles_) if self.ensembles_ else None
-        if seen.size > 1 and not self.ensembles_:  # no usable feature: class priors
-            self.seen_ = np.zeros_like(self.seen_)
-            self.seen_[int(np.bincount(y_idx).argmax())] = True
-        return self
+        return ensembles
 
-    def cumulative_proba(self, X: ArrayLike) -> NDArray[np.float64]:
-        """Monotone ``P(y > k)`` per threshold between seen classes, shape (n, n_seen - 1)."""
-        X = self._validate_predict(X)
-        if not self.ensembles_:
-            return np.zeros((X.shape[0], 0))
-        forest = getattr(self, "_forest", None)
-        if forest is None:  # ensembles_ set by hand: build the evaluator without caching it
-            forest = TreeForest(self.ensembles_)
-        gt = expit(forest.raw(X))
-        return np.minimum.accumulate(gt, axis=1)
 
-    def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
-        """Probability of each class, shape (n_samples, n_classes), rows sum to 1."""
-        gt = self.cumulative_proba(X)
-        n = gt.shape[0]
-        upper = np.hstack([np.ones((n, 1)), gt])  # P(y > previous)
-        lower = np.hstack([gt, np.zeros((n, 1))])  # P(y > this)
-        return self._pad(upper - lower)
+class CumulativeObliviousClassifier(_CumulativeTrees):
+    """Frank & Hall cumulative decomposition over boosted oblivious trees.
 
-    def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
-        """Path attributions of the log-odds, summed over the thresholds."""
-        X = self._validate_predict(X)
-        out = np.zeros_like(X)
-        for e in self.ensembles_:
-            out += e.contributions(X)
-        return out
+    The same cumulative model as :class:`CumulativeBoostedClassifier` (one binary model of
+    ``P(y > k)`` per threshold, running minimum, differencing), but each threshold model is
+    an ensemble of oblivious trees fitted by :func:`qcflag.learn.oblivious.fit_oblivious`:
+    every depth of a tree tests one (feature, threshold), so prediction is a fixed number of
+    comparisons per tree and vectorises over levels. The features are binned once (8-bit
+    codes, quantile edges) and shared by the threshold models; NaN goes to the greater side.
 
-    def _export(self) -> tuple[dict[str, Any], dict[str, NDArray[Any]]]:
-        meta, arrays = super()._export()
-        metas = []
-        for i, e in enumerate(self.ensembles_):
-            m, a = e.to_arrays(f"t{i}_")
-            metas.append(m)
-            arrays.update(a)
-        meta["ensembles"] = metas
-        return meta, arrays
+    Parameters
+    ----------
+    n_trees : int, default=200
+        Trees per threshold.
+    depth : int, default=6
+        Depth of every tree (``2 ** depth`` leaves).
+    learning_rate : float, default=0.1
+        Shrinkage.
+    l2_regularization : float, default=1.0
+        L2 penalty on leaf values (the ``lambda`` of ``-G / (H + lambda)``).
+    min_child_weight : float, default=1.0
+        Hessian each side of a split keeps at least, summed over the leaves.
+    subsample : float, default=1.0
+        Share of the levels each tree is grown on (seeded by `random_state`).
+    max_bins : int, default=255
+        Bins of finite values per feature (at most 255).
+    class_weight : {"sqrt", "balanced"}, dict or None, default="sqrt"
+        Sample weighting against class imbalance, from the multi-class labels; a dict maps
+        labels to weights (missing labels weigh 1).
+    random_state : int or None, default=0
+        Seed of the bin-edge sample and the row subsamples.
+    classes : sequence of int or None, default=(1, 2, 3, 4)
+        Ordered labels; None uses the sorted distinct training labels.
 
-    @classmethod
-    def _restore(cls, meta: dict[str, Any], arrays: dict[str, NDArray[Any]]) -> Any:
-        est = super()._restore(meta, arrays)
-        est.ensembles_ = [
-            TreeEnsemble.from_arrays(m, arrays, f"t{i}_") for i, m in enumerate(meta["ensembles"])
+    Attributes
+    ----------
+    classes_ : ndarray of shape (n_classes,)
+        Ordered labels.
+    seen_ : ndarray of bool, shape (n_classes,)
+        Which classes occurred in the training labels.
+    ensembles_ : list of ObliviousEnsemble
+        One per threshold, ``P(y > k)`` for the ``k``-th seen class.
+    n_features_in_ : int
+        Number of features seen in ``fit``.
+    feature_names_in_ : ndarray of str
+        Feature names seen in ``fit`` (only when X had string column names).
+    """
+
+    _ensemble_cls = ObliviousEnsemble
+
+    def __init__(
+        self,
+        *,
+        n_trees: int = 200,
+        depth: int = 6,
+        learning_rate: float = 0.1,
+        l2_regularization: float = 1.0,
+        min_child_weight: float = 1.0,
+        subsample: float = 1.0,
+        max_bins: int = 255,
+        class_weight: ClassWeight = "sqrt",
+        random_state: int | None = 0,
+        classes: ArrayLike | None = GRADES,
+    ) -> None:
+        self.n_trees = n_trees
+        self.depth = depth
+        self.learning_rate = learning_rate
+        self.l2_regularization = l2_regularization
+        self.min_child_weight = min_child_weight
+        self.subsample = subsample
+        self.max_bins = max_bins
+        self.class_weight = class_weight
+        self.random_state = random_state
+        self.classes = classes
+
+    @staticmethod
+    def _evaluator(ensembles: list[Any]) -> ObliviousForest:
+        return ObliviousForest(ensembles)
+
+    def _fit_thresholds(
+        self, X: NDArray[np.float64], y_idx: NDArray[np.int64], sw: NDArray[np.float64],
+        thresholds: NDArray[np.int64],
+    ) -> list[Any]:
+        if thresholds.size == 0:
+            return []
+        seed = 0 if self.random_state is None else int(self.random_state)
+        edges = bin_edges(X, max_bins=self.max_bins, seed=seed)
+        codes = bin_codes(X, edges)
+        return [
+            fit_oblivious(
+                codes, edges, y_idx > k, sw, n_trees=self.n_trees, depth=self.depth,
+                learning_rate=self.learning_rate, l2_regularization=self.l2_regularization,
+                min_child_weight=self.min_child_weight, subsample=self.subsample,
+                random_state=None if self.random_state is None
+                else [int(self.random_state), int(k)],
+            )
+            for k in thresholds
         ]
-        if len(est.ensembles_) != max(int(np.sum(est.seen_)) - 1, 0):
-            raise ValueError("number of threshold models does not match the seen classes")
-        est._forest = TreeForest(est.ensembles_) if est.ensembles_ else None
-        return est
 
 
 ESTIMATORS: dict[str, type[_GradeEstimator]] = {
@@ -850,6 +999,7 @@ ESTIMATORS: dict[str, type[_GradeEstimator]] = {
     "OrdinalLogistic": OrdinalLogistic,
     "NominalLogistic": NominalLogistic,
     "CumulativeBoostedClassifier": CumulativeBoostedClassifier,
+    "CumulativeObliviousClassifier": CumulativeObliviousClassifier,
 }
 """The estimator classes a model file may name (nothing else is ever instantiated)."""
 
@@ -859,10 +1009,10 @@ def make_estimator(name: str, *, seed: int = 0, rule_column: int = -1) -> _Grade
 
     Parameters
     ----------
-    name : {"boosted", "logistic-at", "logistic-it", "nominal", "rules", "always-good"}
-        Which model.
+    name : {"boosted", "boosted-oblivious", "logistic-at", "logistic-it", "nominal", ...}
+        Which model (also ``"rules"`` and ``"always-good"``).
     seed : int, default=0
-        Random state of the boosted model.
+        Random state of the boosted models.
     rule_column : int, default=-1
         Feature column holding the rule grade (for ``"rules"``).
 
@@ -873,6 +1023,8 @@ def make_estimator(name: str, *, seed: int = 0, rule_column: int = -1) -> _Grade
     """
     if name == "boosted":
         return CumulativeBoostedClassifier(random_state=seed)
+    if name == "boosted-oblivious":
+        return CumulativeObliviousClassifier(random_state=seed)
     if name == "logistic-at":
         return OrdinalLogistic("at")
     if name == "logistic-it":
@@ -884,5 +1036,6 @@ def make_estimator(name: str, *, seed: int = 0, rule_column: int = -1) -> _Grade
     if name == "always-good":
         return AlwaysGood()
     raise ValueError(
-        f"unknown estimator {name!r}; choose boosted, logistic-at, logistic-it or nominal"
+        f"unknown estimator {name!r}; choose boosted, boosted-oblivious, logistic-at, "
+        "logistic-it or nominal"
     )

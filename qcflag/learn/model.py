@@ -41,6 +41,7 @@ __all__ = [
     "ALL_MODELS",
     "BASELINES",
     "CAUTION",
+    "TRAINABLE",
     "QCModel",
     "data_fingerprint",
     "evaluate_model",
@@ -53,8 +54,13 @@ __all__ = [
 BASELINES: tuple[str, ...] = ("nominal", "rules", "always-good")
 """Models cross-validated beside the chosen one."""
 
-ALL_MODELS: tuple[str, ...] = ("boosted", "logistic-at", "logistic-it", *BASELINES)
+ALL_MODELS: tuple[str, ...] = ("boosted", "boosted-oblivious", "logistic-at", "logistic-it",
+                               *BASELINES)
 """Models cross-validated with ``compare=True``."""
+
+TRAINABLE: tuple[str, ...] = ("boosted", "boosted-oblivious", "logistic-at", "logistic-it",
+                              "nominal")
+"""Models ``train_model`` (and ``qcflag train --estimator``) can fit as the chosen one."""
 
 CAUTION = ("Automated flags assist expert quality control and do not replace it; the data "
            "programme's own standards prevail.")
@@ -359,8 +365,8 @@ def train_model(
     ----------
     batch : ProfileBatch
         Manually flagged profiles; ``profiles["cruise"]`` gives the groups.
-    estimator : {"boosted", "logistic-at", "logistic-it", "nominal"}, default="boosted"
-        Model to fit.
+    estimator : {"boosted", "boosted-oblivious", "logistic-at", "logistic-it", "nominal"}
+        Model to fit (default "boosted").
     folds : int, default=5
         Cross-validation folds (whole cruises).
     seed : int, default=0
@@ -400,10 +406,10 @@ def train_model(
     """
     from qcflag.rules import BUILTIN_RULE_SETS, load_rules, run_checks
 
-    if estimator not in ("boosted", "logistic-at", "logistic-it", "nominal"):
+    if estimator not in TRAINABLE:
         raise QCFlagError(
-            f"unknown estimator {estimator!r}; choose boosted, logistic-at, logistic-it or "
-            "nominal"
+            f"unknown estimator {estimator!r}; choose {', '.join(TRAINABLE[:-1])} or "
+            f"{TRAINABLE[-1]}"
         )
     missing = [v for v in JUDGED_VARIABLES if v not in batch.flags]
     if len(missing) == len(JUDGED_VARIABLES):

@@ -439,26 +439,28 @@ def _forest_block_py(  # pragma: no cover - runs compiled by numba (see _numba_k
 
 
 def _numba_kernel() -> Any:
-    """Return the compiled block walker, or None when numba is missing or disabled.
-
-    numba is imported here, on the first boosted prediction, so importing qcflag stays fast.
-    Compiled code is cached on disk when a cache directory is writable, and compiled
-    anew in memory otherwise.
-    """
+    """Return the compiled block walker, or None when numba is missing or disabled."""
     if not USE_NUMBA:
         return None
     if "block" not in _kernel_cache:
-        try:
-            import numba
-        except ImportError:  # numba absent or incompatible with this numpy
-            _kernel_cache["block"] = None
-        else:
-            try:
-                jit = numba.njit(nogil=True, cache=True)(_forest_block_py)
-            except RuntimeError:  # no writable cache directory
-                jit = numba.njit(nogil=True, cache=False)(_forest_block_py)
-            _kernel_cache["block"] = jit
+        _kernel_cache["block"] = jit_kernel(_forest_block_py)
     return _kernel_cache["block"]
+
+
+def jit_kernel(func: Any) -> Any:
+    """numba-compile `func` (``nogil``), or return None when numba cannot be imported.
+
+    numba is imported here, on first use, so importing qcflag stays fast. Compiled code is
+    cached on disk when a cache directory is writable, and compiled anew in memory otherwise.
+    """
+    try:
+        import numba
+    except ImportError:  # numba absent or incompatible with this numpy
+        return None
+    try:
+        return numba.njit(nogil=True, cache=True)(func)
+    except RuntimeError:  # no writable cache directory
+        return numba.njit(nogil=True, cache=False)(func)
 
 
 
