@@ -572,7 +572,56 @@ def test_profile_table_round_trip_keeps_order_and_dtypes(tmp_path):
     b = _odd_batch()
     got = read_netcdf(write_netcdf(b, tmp_path / "o.nc", history=HIST)).profiles
     want = b.profiles.copy()
-    want["bval"] = want["bval"].astype(np.int64)  # booleans are written as integers
+    want["bval"] = want["bval"].astype(np.int8)  # booleans are written as 8-bit integers
     want["uval"] = want["uval"].fillna("")  # missing text is written as ""
     assert list(got.columns) == list(want.columns)
     pd.testing.assert_frame_equal(got, want)
+
+
+def test_carried_integer_variables_keep_their_type(tmp_path):
+    """An int8 / uint16 / int32 variable carried through flagging is written back as stored.
+
+    (Before, every carried integer came back as int64: eight times the bytes of an int8
+    mistake marker, and not the type the data manager wrote.)
+    """
+    b = _odd_batch()
+    rng = np.random.default_rng(4)
+    b.extra["lev_i8"] = rng.integers(-5, 5, b.n_levels).astype(np.int8)
+    b.extra["lev_u16"] = rng.integers(0, 60_000, b.n_levels).astype(np.uint16)
+    b.profiles["p_i32"] = np.arange(len(b.profiles), dtype=np.int32)
+    first = write_netcdf(b, tmp_path / "a.nc", history=HIST)
+    got = read_netcdf(first)
+    for col, dt in (("lev_i8", np.int8), ("lev_u16", np.uint16)):
+        assert got.extra[col].dtype == dt
+        np.testing.assert_array_equal(got.extra[col].to_numpy(), b.extra[col].to_numpy())
+    assert got.profiles["p_i32"].dtype == np.int32
+    again = write_netcdf(got, tmp_path / "b.nc", history=HIST)  # and once more: unchanged
+    with netCDF4.Dataset(first) as d1, netCDF4.Dataset(again) as d2:
+        for name in ("lev_i8", "lev_u16", "p_i32"):
+            assert d1[name].dtype == np.dtype(
+                {"lev_i8": np.int8, "lev_u16": np.uint16, "p_i32": np.int32}[name])
+            assert d2[name].dtype == d1[name].dtype
+
+
+def test_per_level_text_reads_as_categories_and_writes_the_same(tmp_path):
+    """Per-level text comes back as categories with the stored values, and writing the
+    categorical column gives the same file as writing the same text as plain strings."""
+    import pandas as pd
+
+    b = _odd_batch()
+    rng = np.random.default_rng(9)
+    words = np.array(["", "spike", "stuck ", "ünï"], dtype=object)  # trailing blank stripped
+    b.extra["lev_words"] = words[rng.integers(0, 4, b.n_levels)]
+    got = read_netcdf(write_netcdf(b, tmp_path / "a.nc", history=HIST))
+    col = got.extra["lev_words"]
+    assert isinstance(col.dtype, pd.CategoricalDtype)
+    assert col.cat.categories.is_unique
+    want = [w.strip() for w in b.extra["lev_words"]]
+    assert col.astype(object).tolist() == want
+    assert got.extra["lev_text"].astype(object).tolist() == [
+        "" if pd.isna(v) else v for v in b.extra["lev_text"]]
+    plain = got.select(np.arange(got.n_profiles))
+    plain.extra["lev_words"] = col.astype(object).to_numpy()
+    plain.extra["lev_text"] = got.extra["lev_text"].astype(object).to_numpy()
+    _same_content(write_netcdf(got, tmp_path / "cat.nc", history=HIST),
+                  write_netcdf(plain, tmp_path / "obj.nc", history=HIST))

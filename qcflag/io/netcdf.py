@@ -398,17 +398,45 @@ def _floats(var: Any, source: str) -> NDArray[np.float64]:
     return arr
 
 
-def _strings(var: Any, ndim: int) -> NDArray[np.object_]:
-    """Text values with `ndim` dimensions (char arrays joined along their last dimension)."""
+def _text_codes(var: Any, ndim: int) -> tuple[NDArray[np.intp], NDArray[np.object_]] | None:
+    """Codes into a table of distinct decoded, stripped texts; None if `var` is not text.
+
+    Char arrays are joined along their last dimension. Each distinct stored value is
+    decoded and stripped once (per-level text repeats a few values, mostly the empty one,
+    which is found by one vectorised comparison); values that become equal after stripping
+    share one table entry, so the table holds no duplicates.
+    """
     raw = np.asarray(var.values)
     if raw.dtype.kind == "S" and raw.ndim == ndim + 1:
         width = raw.shape[-1]
         raw = np.ascontiguousarray(raw).view(f"S{max(width, 1)}").reshape(raw.shape[:-1])
-    if raw.dtype.kind in "SOU":
-        # decode and strip once per distinct value (per-level text repeats a few values)
-        codes, uniq = pd.factorize(raw.ravel().astype(object), use_na_sentinel=False)
-        table = np.array([_decoded(u).strip("\x00 ") for u in uniq] or [""], dtype=object)
-        return table[codes].reshape(raw.shape)
+    if raw.dtype.kind not in "SOU":
+        return None
+    flat = raw.ravel()
+    if raw.dtype.kind == "S":
+        empty = flat == b""
+        codes = np.zeros(flat.size, dtype=np.intp)
+        rest = np.flatnonzero(~empty)
+        uniq: list[Any] = [b""]
+        if rest.size:
+            sub, found = pd.factorize(flat[rest].astype(object), use_na_sentinel=False)
+            codes[rest] = sub + 1
+            uniq += list(found)
+    else:
+        codes, found = pd.factorize(flat.astype(object), use_na_sentinel=False)
+        uniq = list(found)
+    texts = [_decoded(u).strip("\x00 ") for u in uniq] or [""]
+    table, inverse = np.unique(np.array(texts, dtype=object), return_inverse=True)
+    return inverse.ravel()[codes].reshape(raw.shape), table
+
+
+def _strings(var: Any, ndim: int) -> NDArray[np.object_]:
+    """Text values with `ndim` dimensions (char arrays joined along their last dimension)."""
+    coded = _text_codes(var, ndim)
+    if coded is not None:
+        codes, table = coded
+        return table[codes]
+    raw = np.asarray(var.values)
     if raw.dtype.kind in "iu":
         out = raw.astype(str).astype(object)
     elif raw.dtype.kind == "f":
@@ -922,7 +950,12 @@ def _from_cf(ds: Any, *, scheme: str | None, source: str) -> ProfileBatch:
             prof_cols[label] = _column(var, 1, source)
         elif (obs_dim is not None and base == (obs_dim,)) or (
                 obs_dim is None and full and set(base) == set(full)):
-            extra[label] = lvl(var, lambda v, nd=nd: _column(v, nd, source))
+            coded = _text_codes(var, nd) if nd == 1 else None
+            if coded is None:
+                extra[label] = lvl(var, lambda v, nd=nd: _column(v, nd, source))
+            else:  # per-level text repeats a few values: kept as categories
+                extra[label] = pd.Categorical.from_codes(lvl(var, lambda v, c=coded[0]: c),
+                                                         categories=coded[1])
     profiles = pd.DataFrame(prof_cols)  # one frame, not a column insertion per variable
     # ---- drop empty profiles
     if not has.any():
@@ -992,8 +1025,8 @@ def _column(var: Any, ndim: int, source: str) -> Any:
                 arr = np.where(arr == int(np.asarray(fill).ravel()[0]), NO_FLAG, arr)
             return format_codes(np.clip(arr, -1, 127)).astype(object)
         fill = var.attrs.get("_FillValue")
-        if fill is None:
-            return raw.astype(np.int64)
+        if fill is None:  # kept in its stored type (written back the same)
+            return raw.astype(np.int8) if raw.dtype.kind == "b" else raw
         mask = raw == np.asarray(fill).astype(raw.dtype)
         out = pd.array(raw.astype(np.int64).ravel(), dtype="Int64")
         out[mask.ravel()] = pd.NA
@@ -1042,14 +1075,22 @@ def _column_variable(values: Any, dim: str) -> tuple[NDArray[Any], dict[str, Any
     if isinstance(s.dtype, pd.Int64Dtype | pd.Int32Dtype | pd.Int16Dtype | pd.Int8Dtype):
         fill = np.iinfo(np.int64).min
         return s.to_numpy(dtype=np.int64, na_value=fill), {"_FillValue": fill}
-    if s.dtype.kind in "iu":
-        return s.to_numpy(dtype=np.int64), {}
+    if s.dtype.kind in "iu":  # in its own type: a carried-over int8 stays int8
+        return s.to_numpy(), {}
     if s.dtype.kind == "b":
         return s.to_numpy(dtype=np.int8), {}
     if s.dtype.kind == "f":
         return s.to_numpy(dtype=np.float64), {"_FillValue": np.nan}
     if s.dtype.kind == "M":
         return to_ns(s), {}
+    if isinstance(s.dtype, pd.CategoricalDtype) and all(
+            type(c) is str for c in s.cat.categories):
+        # already coded (per-level text as read): encode each category once, no hashing
+        table = np.array([c.encode("utf-8") for c in s.cat.categories] + [b""],
+                         dtype=np.bytes_)
+        if table.dtype.itemsize == 0:
+            table = table.astype("S1")
+        return table[s.cat.codes.to_numpy()], {}  # code -1 (missing) is the last entry: ""
     return _text_variable(s.to_numpy(dtype=object))
 
 
