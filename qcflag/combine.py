@@ -735,12 +735,15 @@ def rules_confidence(checks: CheckTable, variable: str, grade: ArrayLike) -> NDA
     succession). Forced grades get 1 in :func:`combine`.
     """
     g = np.asarray(grade)
-    n_fired = np.zeros(checks.n_levels, dtype=np.int16)
-    n_pass = np.zeros(checks.n_levels, dtype=np.int16)
-    for (_, v), r in checks.results.items():
-        if v == variable:
-            n_fired += r.grade >= 3
-            n_pass += (r.grade >= 1) & (r.grade <= 2)
+    grades = [r.grade for (_, v), r in checks.results.items() if v == variable]
+    # counts fit the type; booleans are added as their bytes (no conversion pass)
+    kind = np.uint8 if len(grades) < 255 else np.int64
+    n_fired = np.zeros(checks.n_levels, dtype=kind)
+    n_pass = np.zeros(checks.n_levels, dtype=kind)  # first: applicable (grade >= 1)
+    for r_grade in grades:
+        np.add(n_fired, (r_grade >= 3).view(np.uint8), out=n_fired)
+        np.add(n_pass, (r_grade >= 1).view(np.uint8), out=n_pass)
+    n_pass -= n_fired  # applicable and not fired: grade 1 or 2
     conf = (n_pass + 1.0) / (n_pass + 2.0)
     bad = np.flatnonzero(g >= 3)
     conf[bad] = 1.0 - 0.5 ** np.maximum(n_fired[bad], 1).astype(np.float64)
@@ -749,7 +752,8 @@ def rules_confidence(checks: CheckTable, variable: str, grade: ArrayLike) -> NDA
 
 def _mask_strings(names: Sequence[str], mask: NDArray[np.int64]) -> NDArray[np.object_]:
     """Join the names of each bit mask with ``;`` (once per distinct mask)."""
-    out = np.full(mask.size, "", dtype=object)
+    out = np.empty(mask.size, dtype=object)
+    out.fill("")  # (faster than np.full for object arrays)
     hit = np.flatnonzero(mask)  # few levels fire anything: join only theirs
     if hit.size:
         uniq, inv = np.unique(mask[hit], return_inverse=True)
@@ -767,15 +771,17 @@ def _model_reasons(
     proba_model: NDArray[np.float64] | None,
     attribution: tuple[Sequence[str], NDArray[np.float64]] | None,
     n_top: int,
-) -> NDArray[np.object_]:
-    """Top features that pushed each level flagged >= 3 by the model (``model:<feature>``)."""
-    out = np.full(grade.shape, "", dtype=object)
+) -> tuple[NDArray[np.int64], NDArray[np.object_]]:
+    """Top features that pushed each level flagged >= 3 by the model (``model:<feature>``).
+
+    Returns the levels concerned (flagged >= 3 and not forced, when there is a model) and
+    their non-empty reason text (``"model"`` when no feature pushed, or no attribution).
+    """
     sel = np.flatnonzero((grade >= 3) & ~forced)
     if sel.size == 0 or proba_model is None:
-        return out
+        return sel[:0], np.zeros(0, dtype=object)
     if attribution is None:
-        out[sel] = "model"
-        return out
+        return sel, np.full(sel.size, "model", dtype=object)
     names, contrib = attribution
     c = np.asarray(contrib, dtype=float)[sel]
     names_arr = np.array([f"model:{n}" for n in names] + [""], dtype=object)
@@ -789,8 +795,16 @@ def _model_reasons(
         nxt = labels[:, j].astype(str)
         joined = np.where(nxt != "", np.char.add(np.char.add(joined, ";"), nxt), joined)
     joined = np.where(joined == "", "model", joined)
-    out[sel] = joined.astype(object)
-    return out
+    return sel, joined.astype(object)
+
+
+def _add_model_reasons(reasons: NDArray[np.object_], sel: NDArray[np.int64],
+                       extra: NDArray[np.object_]) -> NDArray[np.object_]:
+    """Append the model's reasons `extra` of levels `sel` to `reasons` (``;``), in place."""
+    if sel.size:
+        base = reasons[sel]
+        reasons[sel] = np.where(base != "", base + ";" + extra, extra)
+    return reasons
 
 
 def forced_grades(checks: CheckTable, variable: str) -> NDArray[np.int8]:
@@ -810,7 +824,8 @@ def forced_grades(checks: CheckTable, variable: str) -> NDArray[np.int8]:
     out = np.zeros(checks.n_levels, dtype=np.int8)
     for (name, v), r in checks.results.items():
         if v == variable and name in FORCING:
-            np.maximum(out, np.where(r.grade >= 3, r.grade, 0).astype(np.int8), out=out)
+            hit = np.flatnonzero(r.grade >= 3)  # few levels: work on those only
+            out[hit] = np.maximum(out[hit], r.grade[hit])
     return out
 
 
@@ -886,11 +901,8 @@ def combine(
     attr = None
     if attribution is not None:
         attr = (list(attribution[0]), np.asarray(attribution[1], dtype=float))
-    extra = _model_reasons(grade, forced, p_model, attr, n_top_features)
-    has_extra = extra != ""
-    if has_extra.any():
-        both = has_extra & (reasons != "")
-        reasons = np.where(both, reasons + ";" + extra, np.where(has_extra, extra, reasons))
+    reasons = _add_model_reasons(reasons, *_model_reasons(grade, forced, p_model, attr,
+                                                          n_top_features))
 
     state = np.full(n, State.ASSESSED, dtype=np.int8)
     if values is not None:
@@ -900,7 +912,7 @@ def combine(
             grade = np.where(missing, 0, grade).astype(np.int8)
             confidence = np.where(missing, np.nan, confidence)
             forced = forced & ~missing
-            reasons = np.where(missing, "", reasons)
+            reasons[missing] = ""
             if fused is not None:
                 fused[missing] = np.nan
     return VariableFlags(
@@ -949,9 +961,7 @@ def explain(
     names, mask = checks.fired_mask(variable)
     reasons = _mask_strings(names, mask)
     attr = (list(attribution[0]), np.asarray(attribution[1], dtype=float))
-    extra = _model_reasons(flags.grade, flags.forced, flags.proba, attr, n_top_features)
-    has_extra = extra != ""
-    both = has_extra & (reasons != "")
-    reasons = np.where(both, reasons + ";" + extra, np.where(has_extra, extra, reasons))
-    reasons = np.where(flags.state == State.ASSESSED, reasons, "")
+    reasons = _add_model_reasons(reasons, *_model_reasons(
+        flags.grade, flags.forced, flags.proba, attr, n_top_features))
+    reasons[flags.state != State.ASSESSED] = ""
     return replace(flags, reasons=np.asarray(reasons, dtype=object))

@@ -81,8 +81,9 @@ class CheckTable:
         """Bit mask per level of the checks that gave grade >= 3; bit i is ``names[i]``."""
         names = self.checks_for(variable)
         mask = np.zeros(self.n_levels, dtype=np.int64)
-        for i, name in enumerate(names):
-            mask |= self.results[(name, variable)].fired.astype(np.int64) << i
+        for i, name in enumerate(names):  # few levels fire: set the bit at those only
+            hit = np.flatnonzero(self.results[(name, variable)].grade >= 3)
+            mask[hit] |= np.int64(1) << i
         return names, mask
 
     def statistics(self) -> dict[str, NDArray[np.float64]]:
