@@ -128,9 +128,14 @@ def test_interrupted_write_leaves_nothing(archive, tmp_path, monkeypatch, interr
     def half_then_die_direct(path, *a, **k):  # the writer that bypasses xarray
         half_then_die_nc(None, path)
 
+    def half_then_die_table(table, path, *a, **k):  # the CSV writer that bypasses pandas
+        half_then_die_csv(None, path)
+
+    from qcflag.io import csv as qcsv
     from qcflag.io import netcdf
 
     monkeypatch.setattr(pd.DataFrame, "to_csv", half_then_die_csv)
+    monkeypatch.setattr(qcsv, "write_table", half_then_die_table)
     monkeypatch.setattr(xr.Dataset, "to_netcdf", half_then_die_nc)
     monkeypatch.setattr(netcdf, "_write_direct", half_then_die_direct)
     src = sorted(archive.glob("*.csv"))[0]

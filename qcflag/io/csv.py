@@ -33,7 +33,7 @@ import os
 import warnings
 from collections.abc import Mapping
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -53,6 +53,9 @@ from qcflag.io.common import (
 )
 from qcflag.profiles import LEVEL_VARIABLES, META_COLUMNS, ProfileBatch
 from qcflag.schemes import format_codes, get_scheme, parse_codes
+
+if TYPE_CHECKING:
+    from numpy.typing import NDArray
 
 __all__ = ["TruncatedInputWarning", "read_csv", "write_csv"]
 
@@ -476,5 +479,102 @@ def write_csv(
     del history
     table = level_table(batch, added=added)
     with atomic_output(path, overwrite=overwrite) as tmp:
-        table.to_csv(tmp, index=False, lineterminator="\n", na_rep="", encoding="utf-8")
+        write_table(table, tmp)
     return Path(path)
+
+
+_ROWS_PER_BLOCK = 65_536
+"""Rows formatted and written at a time by :func:`write_table` (bounded memory)."""
+
+
+def write_table(table: pd.DataFrame, path: str | os.PathLike[str]) -> None:
+    """Write `table` as CSV, byte for byte as pandas' ``to_csv`` does, several times faster.
+
+    The pandas call it stands for is ``table.to_csv(path, index=False, lineterminator=LF,
+    na_rep="", encoding="utf-8")``. Each column is turned into text on its own: numbers
+    with ``repr`` (the shortest text that reads back to the same double, as pandas writes
+    them), text through the csv module once per distinct value (so quoting follows the same
+    rules). Rows are then joined a block of :data:`_ROWS_PER_BLOCK` at a time. Column
+    types it does not know (datetimes, float32, objects that are not all text...) and
+    one-column tables go to pandas.
+    """
+    if table.shape[1] < 2 or len(table) == 0:
+        table.to_csv(path, index=False, lineterminator="\n", na_rep="", encoding="utf-8")
+        return
+    quote = _field_quoter()
+    header = [quote(str(c)) for c in table.columns]
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        fh.write(",".join(header) + "\n")
+        for start in range(0, len(table), _ROWS_PER_BLOCK):
+            block = table.iloc[start:start + _ROWS_PER_BLOCK]
+            cols = [_column_text(block[c], quote) for c in block.columns]
+            if any(c is None for c in cols):
+                fh.close()
+                table.to_csv(path, index=False, lineterminator="\n", na_rep="",
+                             encoding="utf-8")
+                return
+            fh.write("\n".join(map(",".join, zip(*cols, strict=True))))
+            fh.write("\n")
+
+
+def _field_quoter() -> Any:
+    """Return ``f(text) -> field`` quoting one field as pandas' csv writer does."""
+    import io
+
+    buf = io.StringIO()
+    writer = _csv.writer(buf, lineterminator="\n", delimiter=",", quotechar='"',
+                         quoting=_csv.QUOTE_MINIMAL, doublequote=True)
+
+    def quote(text: str) -> str:
+        buf.seek(0)
+        buf.truncate()
+        writer.writerow((text, ""))  # a second, empty field: no single-field special case
+        return buf.getvalue()[:-2]  # drop "," and the line end
+
+    return quote
+
+
+def _by_value(vals: NDArray[Any], fmt: Any) -> list[str]:
+    """Return ``fmt(vals)``, formatting each distinct value once when values repeat.
+
+    Per-profile columns broadcast to their levels, grades and confidences repeat a few
+    values; measured values are mostly distinct and are formatted directly.
+    """
+    codes, uniq = pd.factorize(vals)
+    if len(uniq) * 4 > len(vals):  # mostly distinct: format directly
+        return fmt(vals)
+    return np.array(fmt(np.asarray(uniq)), dtype=object)[codes].tolist()
+
+
+def _column_text(col: pd.Series, quote: Any) -> list[str] | None:
+    """Text of every cell of `col` as pandas' ``to_csv`` writes it, or None if unsure."""
+    dt = col.dtype
+    if isinstance(dt, pd.CategoricalDtype):
+        cats = _column_text(pd.Series(dt.categories), quote)
+        if cats is None:
+            return None
+        table = np.array([*cats, ""], dtype=object)  # code -1 (missing): empty
+        return table[col.cat.codes.to_numpy()].tolist()
+    if isinstance(dt, pd.api.extensions.ExtensionDtype) and dt.kind in "iu":  # nullable int
+        na = col.isna().to_numpy()
+        vals = col.to_numpy(dtype=np.int64, na_value=0)
+        out = np.array(list(map(str, vals.tolist())), dtype=object)
+        out[na] = ""
+        return out.tolist()
+    if isinstance(dt, np.dtype):
+        vals = col.to_numpy()
+        if dt == np.float64:
+            # by bit pattern, so -0.0 and 0.0 stay apart; NaN (any payload) is written empty
+            return _by_value(vals.view(np.int64), lambda u: [
+                "" if v != v else repr(v) for v in u.view(np.float64).tolist()])
+        if dt.kind in "iub":
+            return _by_value(vals, lambda u: list(map(str, u.tolist())))
+        if dt.kind != "O":
+            return None
+    elif not isinstance(dt, pd.StringDtype):
+        return None
+    codes, uniq = pd.factorize(col, use_na_sentinel=True)
+    if not all(type(u) is str for u in uniq):
+        return None
+    table = np.array([*(quote(u) for u in uniq), ""], dtype=object)  # -1 (missing): ""
+    return table[codes].tolist()
