@@ -182,7 +182,12 @@ class _GradeEstimator(ClassifierMixin, BaseEstimator):
         )
 
     def _pad(self, proba_seen: NDArray[np.float64]) -> NDArray[np.float64]:
-        """Place probabilities of the seen classes into all ``classes_`` columns."""
+        """Place probabilities of the seen classes into all ``classes_`` columns.
+
+        Returns `proba_seen` itself when every class was seen (callers pass a fresh array).
+        """
+        if self.seen_.all():
+            return proba_seen
         out = np.zeros((proba_seen.shape[0], self.classes_.size), dtype=np.float64)
         out[:, self.seen_] = proba_seen
         return out
@@ -750,10 +755,13 @@ class _CumulativeTrees(_GradeEstimator):
     def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
         """Probability of each class, shape (n_samples, n_classes), rows sum to 1."""
         gt = self.cumulative_proba(X)
-        n = gt.shape[0]
-        upper = np.hstack([np.ones((n, 1)), gt])  # P(y > previous)
-        lower = np.hstack([gt, np.zeros((n, 1))])  # P(y > this)
-        return self._pad(upper - lower)
+        n, m = gt.shape
+        out = np.empty((n, m + 1))  # P(y > previous) - P(y > this), with 1 and 0 at the ends
+        out[:, 0] = 1.0 - (gt[:, 0] if m else 0.0)
+        np.subtract(gt[:, :-1], gt[:, 1:], out=out[:, 1:m])
+        if m:
+            out[:, m] = gt[:, m - 1]
+        return self._pad(out)
 
     def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
         """Path attributions of the log-odds, summed over the thresholds."""

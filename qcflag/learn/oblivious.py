@@ -309,15 +309,17 @@ def _predict_block_py(  # pragma: no cover - runs compiled by numba (see _kernel
     """Evaluate levels ``start:stop`` of `X` into ``out[start:stop]`` (numba kernel).
 
     Levels go 256 at a time: the used columns (`cols`; `feats` index into them) are copied
-    into a column-major buffer, then for each tree every depth's comparison runs over all
-    256 levels (vectorised), and the leaf values are added tree by tree in the trees' order.
+    into a column-major buffer, then for each tree the comparisons run over all 256 levels
+    (vectorised), up to four depths per pass, and the leaf values are added tree by tree in
+    the trees' order.
     """
     n_trees, depth = feats.shape
     n_cols = cols.size
     n_ens = baselines.size
     sub = 256
     xt = np.empty((n_cols, sub), dtype=np.float64)
-    leaf = np.empty(sub, dtype=np.uint64)  # unsigned: no negative-index wraparound code
+    leaf = np.zeros(sub, dtype=np.uint64)  # unsigned: no negative-index wraparound code
+    one, two, three = np.uint64(1), np.uint64(2), np.uint64(3)
     acc = np.empty((n_ens, sub), dtype=np.float64)
     for s0 in range(start, stop, sub):
         m = min(sub, stop - s0)
@@ -328,16 +330,46 @@ def _predict_block_py(  # pragma: no cover - runs compiled by numba (see _kernel
             for i in range(m):
                 acc[k, i] = baselines[k]
         for t in range(n_trees):
-            f = feats[t, 0]
-            th = thrs[t, 0]
-            for i in range(m):
-                leaf[i] = np.uint64(not (xt[f, i] <= th))
-            for d in range(1, depth):
-                f = feats[t, d]
-                th = thrs[t, d]
+            # the depths in passes of up to four comparisons per level (fewer trips of
+            # `leaf` through memory); `keep` clears the leaf on the first pass
+            keep = np.uint64(0)
+            d = 0
+            while d < depth:
+                r = depth - d
                 sh = np.uint64(d)
-                for i in range(m):
-                    leaf[i] |= np.uint64(not (xt[f, i] <= th)) << sh
+                f0, t0 = feats[t, d], thrs[t, d]
+                if r >= 4:
+                    f1, t1 = feats[t, d + 1], thrs[t, d + 1]
+                    f2, t2 = feats[t, d + 2], thrs[t, d + 2]
+                    f3, t3 = feats[t, d + 3], thrs[t, d + 3]
+                    for i in range(m):
+                        b = (np.uint64(not (xt[f0, i] <= t0))
+                             | (np.uint64(not (xt[f1, i] <= t1)) << one)
+                             | (np.uint64(not (xt[f2, i] <= t2)) << two)
+                             | (np.uint64(not (xt[f3, i] <= t3)) << three))
+                        leaf[i] = (leaf[i] & keep) | (b << sh)
+                    d += 4
+                elif r == 3:
+                    f1, t1 = feats[t, d + 1], thrs[t, d + 1]
+                    f2, t2 = feats[t, d + 2], thrs[t, d + 2]
+                    for i in range(m):
+                        b = (np.uint64(not (xt[f0, i] <= t0))
+                             | (np.uint64(not (xt[f1, i] <= t1)) << one)
+                             | (np.uint64(not (xt[f2, i] <= t2)) << two))
+                        leaf[i] = (leaf[i] & keep) | (b << sh)
+                    d += 3
+                elif r == 2:
+                    f1, t1 = feats[t, d + 1], thrs[t, d + 1]
+                    for i in range(m):
+                        b = (np.uint64(not (xt[f0, i] <= t0))
+                             | (np.uint64(not (xt[f1, i] <= t1)) << one))
+                        leaf[i] = (leaf[i] & keep) | (b << sh)
+                    d += 2
+                else:
+                    for i in range(m):
+                        leaf[i] = (leaf[i] & keep) | (np.uint64(not (xt[f0, i] <= t0)) << sh)
+                    d += 1
+                keep = ~np.uint64(0)
             k = tree_ens[t]
             vt = values[t]
             for i in range(m):
@@ -369,19 +401,40 @@ def _predict_rows_py(  # pragma: no cover - runs compiled by numba; the slower v
 
 
 def _hist_py(  # pragma: no cover - runs compiled by numba
-    codes: NDArray[np.uint8], rows: NDArray[np.int64], sel: NDArray[np.int64],
-    slot: NDArray[np.int64], g: NDArray[np.float64], h: NDArray[np.float64],
-    hist: NDArray[np.float64],
+    codes: NDArray[np.uint8], rows: NDArray[np.int64], slot: NDArray[np.int64],
+    g: NDArray[np.float64], h: NDArray[np.float64], hist: NDArray[np.float64],
 ) -> None:
-    """Add ``g``/``h`` of rows ``rows[sel]`` into ``hist[j, slot, code, 0/1]`` (row order)."""
+    """Add ``g[q]``/``h[q]`` into ``hist[j, slot[q], codes[j, rows[q]], 0/1]`` in order."""
     for j in range(codes.shape[0]):
         cj = codes[j]
-        for q in range(sel.size):
-            k = sel[q]
-            c = cj[rows[k]]
+        hj = hist[j]
+        for q in range(rows.size):
+            c = cj[rows[q]]
             s = slot[q]
-            hist[j, s, c, 0] += g[k]
-            hist[j, s, c, 1] += h[k]
+            hj[s, c, 0] += g[q]
+            hj[s, c, 1] += h[q]
+
+
+def _children_py(  # pragma: no cover - runs compiled by numba
+    hist: NDArray[np.float64], n_leaves: int, small_hi: NDArray[np.bool_],
+) -> None:
+    """Replace each parent and its built smaller child by the two children's histograms.
+
+    Slot ``p`` holds the parent, slot ``p + n_leaves`` the smaller child (bit 1 when
+    ``small_hi[p]``); afterwards slot ``p`` holds bit 0 and slot ``p + n_leaves`` bit 1.
+    """
+    for j in range(hist.shape[0]):
+        for p in range(n_leaves):
+            hi = small_hi[p]
+            for b in range(256):
+                for c in range(2):
+                    built = hist[j, p + n_leaves, b, c]
+                    other = hist[j, p, b, c] - built
+                    if hi:
+                        hist[j, p, b, c] = other
+                    else:
+                        hist[j, p, b, c] = built
+                        hist[j, p + n_leaves, b, c] = other
 
 
 def _split_py(  # pragma: no cover - runs compiled by numba
@@ -445,15 +498,22 @@ def _kernel(name: str) -> Any:
 
 
 # ------------------------------------------------------------------- numpy twins (fit)
-def _hist_np(codes: NDArray[np.uint8], rows: NDArray[np.int64], sel: NDArray[np.int64],
-             slot: NDArray[np.int64], g: NDArray[np.float64], h: NDArray[np.float64],
-             hist: NDArray[np.float64]) -> None:
+def _hist_np(codes: NDArray[np.uint8], rows: NDArray[np.int64], slot: NDArray[np.int64],
+             g: NDArray[np.float64], h: NDArray[np.float64], hist: NDArray[np.float64]) -> None:
     n_slots = hist.shape[1]
-    gs, hs = g[sel], h[sel]
     for j in range(codes.shape[0]):  # loop over features; bincount adds in row order
-        idx = slot * 256 + codes[j, rows[sel]]
-        hist[j, :, :, 0] += np.bincount(idx, gs, n_slots * 256).reshape(n_slots, 256)
-        hist[j, :, :, 1] += np.bincount(idx, hs, n_slots * 256).reshape(n_slots, 256)
+        idx = slot * 256 + codes[j, rows]
+        hist[j, :, :, 0] += np.bincount(idx, g, n_slots * 256).reshape(n_slots, 256)
+        hist[j, :, :, 1] += np.bincount(idx, h, n_slots * 256).reshape(n_slots, 256)
+
+
+def _children_np(hist: NDArray[np.float64], n_leaves: int, small_hi: NDArray[np.bool_]
+                 ) -> None:
+    built = hist[:, n_leaves:2 * n_leaves].copy()
+    other = hist[:, :n_leaves] - built
+    hi = small_hi[None, :, None, None]
+    hist[:, :n_leaves] = np.where(hi, other, built)
+    hist[:, n_leaves:2 * n_leaves] = np.where(hi, built, other)
 
 
 def _split_np(hist: NDArray[np.float64], n_leaves: int, n_cand: NDArray[np.int64],
@@ -491,10 +551,10 @@ def _apply_np(codes: NDArray[np.uint8], feats: NDArray[np.int64], tcodes: NDArra
     F += values[leaf]
 
 
-def _fit_kernels() -> tuple[Any, Any, Any]:
-    ks = (_kernel("hist"), _kernel("split"), _kernel("apply"))
+def _fit_kernels() -> tuple[Any, ...]:
+    ks = (_kernel("hist"), _kernel("split"), _kernel("apply"), _kernel("children"))
     if any(k is None for k in ks):
-        return _hist_np, _split_np, _apply_np
+        return _hist_np, _split_np, _apply_np, _children_np
     return ks
 
 
@@ -502,20 +562,20 @@ def _fit_kernels() -> tuple[Any, Any, Any]:
 def _grow(
     codes: NDArray[np.uint8], rows: NDArray[np.int64], g: NDArray[np.float64],
     h: NDArray[np.float64], n_cand: NDArray[np.int64], depth: int, lam: float,
-    min_child: float, hist: NDArray[np.float64], kernels: tuple[Any, Any, Any],
+    min_child: float, hist: NDArray[np.float64], kernels: tuple[Any, ...],
 ) -> tuple[NDArray[np.int64], NDArray[np.int64], NDArray[np.float64], NDArray[np.float64]]:
     """Grow one oblivious tree on rows `rows` (gradients `g`, hessians `h` of those rows).
 
     Returns the feature and code of each depth (code -1: no split, every row takes bit 1)
     and the gradient and hessian sums of the leaves.
     """
-    hist_k, split_k, _ = kernels
+    hist_k, split_k, _, children_k = kernels
     m = rows.size
     leaf = np.zeros(m, dtype=np.int64)
     feats = np.zeros(depth, dtype=np.int64)
     tcodes = np.full(depth, -1, dtype=np.int64)
     hist[:, :1] = 0.0
-    hist_k(codes, rows, np.arange(m), np.zeros(m, dtype=np.int64), g, h, hist)
+    hist_k(codes, rows, np.zeros(m, dtype=np.int64), g, h, hist)
     for d in range(depth):
         n_leaves = 1 << d
         f, t, _ = split_k(hist, n_leaves, n_cand, lam, min_child)
@@ -534,13 +594,8 @@ def _grow(
         parent = leaf & (n_leaves - 1)
         sel = np.flatnonzero((leaf >= n_leaves) == small_hi[parent])
         hist[:, n_leaves:2 * n_leaves] = 0.0
-        hist_k(codes, rows, sel, parent[sel] + n_leaves, g, h, hist)
-        hist[:, :n_leaves] -= hist[:, n_leaves:2 * n_leaves]
-        lo = np.flatnonzero(~small_hi)  # built child is bit 0: swap the two slots
-        if lo.size:
-            tmp = hist[:, lo].copy()
-            hist[:, lo] = hist[:, lo + n_leaves]
-            hist[:, lo + n_leaves] = tmp
+        hist_k(codes, rows[sel], parent[sel] + n_leaves, g[sel], h[sel], hist)
+        children_k(hist, n_leaves, small_hi)
     n_leaf = 1 << depth
     G = np.bincount(leaf, g, n_leaf)
     H = np.bincount(leaf, h, n_leaf)
