@@ -34,7 +34,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from measure_heldout import compare_models
 
-LEARNED = ("logistic-at", "logistic-it", "boosted")
+LEARNED = ("logistic-at", "logistic-it", "boosted", "boosted-oblivious")
 """Ordinal models whose wins are counted (scored as qcflag applies them: '+ forced')."""
 
 

@@ -111,7 +111,8 @@ def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
         forced_te = forced_grades(ch_te, var).astype(np.int64)
         scales = quantisation_scales(Xtr[k])
         res: dict[str, dict[str, Any]] = {}
-        for name in ("logistic-at", "logistic-it", "boosted", "nominal", "rules"):
+        for name in ("logistic-at", "logistic-it", "boosted", "boosted-oblivious", "nominal",
+                     "rules"):
             q = name == "boosted"
             A = quantise(Xtr, scales) if q else Xtr
             B = quantise(Xte, scales) if q else Xte
@@ -121,6 +122,8 @@ def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
                 est = make_estimator(name, seed=seed, rule_column=rule_col)
                 if name == "boosted" and quick:
                     est.set_params(max_iter=50)
+                if name == "boosted-oblivious" and quick:
+                    est.set_params(n_trees=100)
                 if "class_weight" in est.get_params():
                     est.set_params(class_weight=cw)
                 return est
