@@ -408,3 +408,31 @@ def test_validate_refuses_bad_ensembles():
                    {"features": np.zeros((2, 13), np.int64)}):
         with pytest.raises(ValueError):
             ObliviousEnsemble(**{**good, **change}).validate()
+
+
+def test_train_model_fits_an_oblivious_model_that_flags(tmp_path):
+    from qcflag.cli.train import _ESTIMATORS
+    from qcflag.learn import train_model
+    from qcflag.pipeline import flag_batch
+    from qcflag.simulate import SimulationConfig, simulate_archive
+
+    assert "boosted-oblivious" in _ESTIMATORS
+    archive = simulate_archive(4, seed=5, config=SimulationConfig(
+        casts_per_cruise=3, floats_per_cruise=0, max_cast_pressure=300))
+    hold = sorted(archive.profiles["cruise"].unique())[-1:]
+    model, report = train_model(archive, estimator="boosted-oblivious", folds=3,
+                                holdout_cruises=hold, max_train_levels=5000,
+                                estimator_params={"n_trees": 20, "depth": 4})
+    assert "boosted-oblivious" in report.to_text()
+    back = load_model(save_model(model, tmp_path / "m.qcm"))
+    assert isinstance(back.estimators["temperature"], CumulativeObliviousClassifier)
+    test = archive.select(archive.profiles["cruise"].isin(hold).to_numpy())
+    result = flag_batch(test, model=back)
+    again = flag_batch(test, model=model)
+    grade = result["temperature"].grade
+    assert grade.shape == (test.n_levels,) and set(np.unique(grade)) <= {0, 1, 2, 3, 4}
+    np.testing.assert_array_equal(grade, again["temperature"].grade)
+    proba = result["temperature"].proba
+    ok = np.isfinite(proba).all(axis=1)
+    assert ok.any()
+    np.testing.assert_allclose(proba[ok].sum(axis=1), 1.0, atol=1e-9)
