@@ -534,6 +534,14 @@ def _field_quoter() -> Any:
     return quote
 
 
+def _float_text(vals: NDArray[np.float64]) -> list[str]:
+    """``repr`` of each value (pandas' text for a double), ``""`` for NaN."""
+    text = list(map(repr, vals.tolist()))
+    for i in np.flatnonzero(np.isnan(vals)).tolist():  # few
+        text[i] = ""
+    return text
+
+
 def _by_value(vals: NDArray[Any], fmt: Any) -> list[str]:
     """Return ``fmt(vals)``, formatting each distinct value once when values repeat.
 
@@ -565,8 +573,7 @@ def _column_text(col: pd.Series, quote: Any) -> list[str] | None:
         vals = col.to_numpy()
         if dt == np.float64:
             # by bit pattern, so -0.0 and 0.0 stay apart; NaN (any payload) is written empty
-            return _by_value(vals.view(np.int64), lambda u: [
-                "" if v != v else repr(v) for v in u.view(np.float64).tolist()])
+            return _by_value(vals.view(np.int64), lambda u: _float_text(u.view(np.float64)))
         if dt.kind in "iub":
             return _by_value(vals, lambda u: list(map(str, u.tolist())))
         if dt.kind != "O":
