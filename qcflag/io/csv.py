@@ -412,15 +412,21 @@ def level_table(
         One row per level.
     """
     pi = batch.profile_index
+
+    def per_level(values: Any) -> pd.Categorical:
+        # profile text repeated on each of its levels: coded, not copied level by level
+        codes, uniq = pd.factorize(np.asarray(values, dtype=object), use_na_sentinel=True)
+        return pd.Categorical.from_codes(codes[pi], categories=uniq)
+
     prof = batch.profiles
     data: dict[str, Any] = {
-        "profile_id": prof["profile_id"].astype(str).to_numpy()[pi],
-        "cruise": prof["cruise"].astype(str).to_numpy()[pi],
+        "profile_id": per_level(prof["profile_id"].astype(str)),
+        "cruise": per_level(prof["cruise"].astype(str)),
     }
     platform = prof["platform"].fillna("").astype(str).to_numpy()
     if (platform != "").any():
-        data["platform"] = platform[pi]
-    data["time"] = format_times(to_ns(prof["time"]))[pi]
+        data["platform"] = per_level(platform)
+    data["time"] = per_level(format_times(to_ns(prof["time"])))
     data["latitude"] = prof["latitude"].to_numpy(dtype=np.float64)[pi]
     data["longitude"] = prof["longitude"].to_numpy(dtype=np.float64)[pi]
     for v in LEVEL_VARIABLES:
