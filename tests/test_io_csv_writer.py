@@ -58,7 +58,8 @@ def test_awkward_values_of_every_supported_type(tmp_path):
 def test_blocks_join_like_one_write(tmp_path, monkeypatch):
     monkeypatch.setattr(qcsv, "_ROWS_PER_BLOCK", 7)
     rng = np.random.default_rng(3)
-    table = pd.DataFrame({"x": rng.normal(size=50), "y": np.arange(50), "z": ["a"] * 50})
+    table = pd.DataFrame({"x": rng.normal(size=50), "y": np.arange(50), "z": ["a"] * 50,
+                          "c": pd.Categorical(rng.choice(["p,1", "q", None], 50))})
     _same_as_pandas(table, tmp_path)
 
 

@@ -509,11 +509,19 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike[str]) -> None:
         return
     quote = _field_quoter()
     header = [quote(str(c)) for c in table.columns]
+    # categories' text is formatted once per column, not once per block
+    categories: dict[Any, NDArray[np.object_] | None] = {}
+    for c in table.columns:
+        dt = table[c].dtype
+        if isinstance(dt, pd.CategoricalDtype):
+            cats = _column_text(pd.Series(dt.categories), quote)
+            categories[c] = None if cats is None else np.array([*cats, ""], dtype=object)
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(header) + "\n")
         for start in range(0, len(table), _ROWS_PER_BLOCK):
             block = table.iloc[start:start + _ROWS_PER_BLOCK]
-            cols = [_column_text(block[c], quote) for c in block.columns]
+            cols = [_column_text(block[c], quote) if c not in categories
+                    else _coded_text(categories[c], block[c]) for c in block.columns]
             if any(c is None for c in cols):
                 fh.close()
                 table.to_csv(path, index=False, lineterminator="\n", na_rep="",
@@ -560,15 +568,17 @@ def _by_value(vals: NDArray[Any], fmt: Any) -> list[str]:
     return np.array(fmt(np.asarray(uniq)), dtype=object)[codes].tolist()
 
 
+def _coded_text(table: NDArray[np.object_] | None, col: pd.Series) -> list[str] | None:
+    """Text of a categorical column from its categories' text (last entry: missing)."""
+    return None if table is None else table[col.cat.codes.to_numpy()].tolist()
+
+
 def _column_text(col: pd.Series, quote: Any) -> list[str] | None:
     """Text of every cell of `col` as pandas' ``to_csv`` writes it, or None if unsure."""
     dt = col.dtype
     if isinstance(dt, pd.CategoricalDtype):
         cats = _column_text(pd.Series(dt.categories), quote)
-        if cats is None:
-            return None
-        table = np.array([*cats, ""], dtype=object)  # code -1 (missing): empty
-        return table[col.cat.codes.to_numpy()].tolist()
+        return _coded_text(None if cats is None else np.array([*cats, ""], dtype=object), col)
     if isinstance(dt, pd.api.extensions.ExtensionDtype) and dt.kind in "iu":  # nullable int
         na = col.isna().to_numpy()
         vals = col.to_numpy(dtype=np.int64, na_value=0)
