@@ -510,12 +510,8 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike[str]) -> None:
     quote = _field_quoter()
     header = [quote(str(c)) for c in table.columns]
     # categories' text is formatted once per column, not once per block
-    categories: dict[Any, NDArray[np.object_] | None] = {}
-    for c in table.columns:
-        dt = table[c].dtype
-        if isinstance(dt, pd.CategoricalDtype):
-            cats = _column_text(pd.Series(dt.categories), quote)
-            categories[c] = None if cats is None else np.array([*cats, ""], dtype=object)
+    categories = {c: _category_text(table[c].dtype, quote) for c in table.columns
+                  if isinstance(table[c].dtype, pd.CategoricalDtype)}
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(header) + "\n")
         for start in range(0, len(table), _ROWS_PER_BLOCK):
@@ -568,17 +564,23 @@ def _by_value(vals: NDArray[Any], fmt: Any) -> list[str]:
     return np.array(fmt(np.asarray(uniq)), dtype=object)[codes].tolist()
 
 
+def _category_text(dtype: pd.CategoricalDtype, quote: Any) -> NDArray[np.object_] | None:
+    """Text of each category and, last, ``""`` for missing (code -1); None if unsure."""
+    cats = _column_text(pd.Series(dtype.categories), quote)
+    return None if cats is None else np.array([*cats, ""], dtype=object)
+
+
 def _coded_text(table: NDArray[np.object_] | None, col: pd.Series) -> list[str] | None:
-    """Text of a categorical column from its categories' text (last entry: missing)."""
+    """Text of a categorical column from :func:`_category_text` of its categories."""
     return None if table is None else table[col.cat.codes.to_numpy()].tolist()
 
 
 def _column_text(col: pd.Series, quote: Any) -> list[str] | None:
-    """Text of every cell of `col` as pandas' ``to_csv`` writes it, or None if unsure."""
+    """Text of every cell of `col` as pandas' ``to_csv`` writes it, or None if unsure.
+
+    Categorical columns go through :func:`_category_text` and :func:`_coded_text`.
+    """
     dt = col.dtype
-    if isinstance(dt, pd.CategoricalDtype):
-        cats = _column_text(pd.Series(dt.categories), quote)
-        return _coded_text(None if cats is None else np.array([*cats, ""], dtype=object), col)
     if isinstance(dt, pd.api.extensions.ExtensionDtype) and dt.kind in "iu":  # nullable int
         na = col.isna().to_numpy()
         vals = col.to_numpy(dtype=np.int64, na_value=0)

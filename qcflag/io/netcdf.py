@@ -413,18 +413,10 @@ def _text_codes(var: Any, ndim: int) -> tuple[NDArray[np.intp], NDArray[np.objec
     if raw.dtype.kind not in "SOU":
         return None
     flat = raw.ravel()
-    if raw.dtype.kind == "S":
-        empty = flat == b""
-        codes = np.zeros(flat.size, dtype=np.intp)
-        rest = np.flatnonzero(~empty)
-        uniq: list[Any] = [b""]
-        if rest.size:
-            sub, found = pd.factorize(flat[rest].astype(object), use_na_sentinel=False)
-            codes[rest] = sub + 1
-            uniq += list(found)
+    if raw.dtype.kind == "S":  # fixed-width bytes: the empty value compared as bytes
+        codes, uniq = _factorize_text(flat, empty=b"")
     else:
-        codes, found = pd.factorize(flat.astype(object), use_na_sentinel=False)
-        uniq = list(found)
+        codes, uniq = _factorize_text(np.asarray(flat, dtype=object))
     texts = [_decoded(u).strip("\x00 ") for u in uniq] or [""]
     table, inverse = np.unique(np.array(texts, dtype=object), return_inverse=True)
     return inverse.ravel()[codes].reshape(raw.shape), table
@@ -1242,24 +1234,26 @@ def _output_variables(
     return variables, {k: g[k] for k in sorted(g)}
 
 
-def _factorize_text(flat: NDArray[Any]) -> tuple[NDArray[np.intp], list[Any]]:
-    """``pd.factorize(flat)`` (codes, distinct values) with the empty string set apart first.
+def _factorize_text(flat: NDArray[Any], empty: str | bytes = ""
+                    ) -> tuple[NDArray[np.intp], list[Any]]:
+    """``pd.factorize(flat)`` (codes, distinct values) with the `empty` value set apart first.
 
-    Per-level text (flag reasons, carried-over comments) is mostly empty; comparing with
-    ``""`` in one vectorised pass and hashing only the rest is several times faster.
+    Per-level text (flag reasons, carried-over comments, fault labels) is mostly empty;
+    comparing with `empty` in one vectorised pass and hashing only the rest is several
+    times faster. Fixed-width bytes are hashed as Python objects.
     """
     try:
-        empty = np.asarray(flat == "", dtype=bool)
+        is_empty = np.asarray(flat == empty, dtype=bool)
     except (TypeError, ValueError):  # values whose comparison is not a plain bool
-        empty = None
-    if empty is None or empty.shape != flat.shape or not empty.any():
-        codes, uniq = pd.factorize(flat, use_na_sentinel=False)
+        is_empty = None
+    if is_empty is None or is_empty.shape != flat.shape or not is_empty.any():
+        codes, uniq = pd.factorize(np.asarray(flat, dtype=object), use_na_sentinel=False)
         return codes, list(uniq)
     codes = np.zeros(flat.size, dtype=np.intp)
-    rest = np.flatnonzero(~empty)
-    uniq: list[Any] = [""]
+    rest = np.flatnonzero(~is_empty)
+    uniq: list[Any] = [empty]
     if rest.size:
-        sub, found = pd.factorize(flat[rest], use_na_sentinel=False)
+        sub, found = pd.factorize(np.asarray(flat[rest], dtype=object), use_na_sentinel=False)
         codes[rest] = sub + 1
         uniq += list(found)
     return codes, uniq
