@@ -507,6 +507,10 @@ def local_cluster(workers: int) -> Any:
     here keep glibc's default (adaptive) thresholds; a task's memory stays bounded by the
     chunk size either way.
 
+    The workers' statistical profiler (a stack sample every 10 ms, shown only on the
+    dashboard, which this cluster does not serve) is switched off: it interrupts the
+    flagging thread a hundred times a second for nothing.
+
     Parameters
     ----------
     workers : int
@@ -519,7 +523,8 @@ def local_cluster(workers: int) -> Any:
     import dask
     from distributed import LocalCluster
 
-    with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
+    with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None,
+                          "distributed.worker.profile.enabled": False}):
         return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                             dashboard_address=None, worker_dashboard_address=None,
                             memory_limit="auto")
@@ -582,58 +587,116 @@ def _run_serial(
     return results
 
 
+TASK_BYTES = 16 * 2**20
+"""Input bytes a dask task aims at: small files are packed together up to this size.
+
+Each task costs the scheduler, the driver and the worker a few milliseconds of messages
+whatever its size, and on a small machine the driver and scheduler share the cores with the
+workers; a 2 MB file flags in about 80 ms, so one task per small file spends several per
+cent of the run on bookkeeping. A file larger than this is a task of its own."""
+
+def _pack_units(units: list[list[int]], sizes: list[int], n_workers: int, *,
+                task_bytes: int = TASK_BYTES) -> list[list[int]]:
+    """Group units of work into dask tasks, largest first, smaller towards the end.
+
+    Units are taken in decreasing input size (longest-processing-time order, so the workers
+    finish together instead of one flagging a big file alone at the end). A task takes
+    units until it holds `task_bytes` or, when less, half a worker's share of what remains
+    (``remaining / (2 * n_workers)``; guided self-scheduling): tasks shrink as the run
+    ends, down to single units, so the workers still finish together. Packing only decides
+    which process flags which file: each unit is flagged exactly as on its own.
+
+    Parameters
+    ----------
+    units : list of list of int
+        Units of work (indices of input files flagged together).
+    sizes : list of int
+        Size in bytes of each input file.
+    n_workers : int
+        Number of workers the tasks go to.
+    task_bytes : int, default=TASK_BYTES
+        Input bytes a task aims at.
+
+    Returns
+    -------
+    list of list of int
+        Tasks as lists of unit indices, in submission order; every unit appears once.
+    """
+    unit_size = [sum(sizes[i] for i in u) for u in units]
+    order = sorted(range(len(units)), key=lambda u: -unit_size[u])
+    remaining = sum(unit_size)
+    tasks: list[list[int]] = []
+    acc, target = 0, 0.0
+    for u in order:
+        if not tasks or acc >= target:
+            tasks.append([])
+            acc, target = 0, min(task_bytes, remaining / (2 * max(n_workers, 1)))
+        tasks[-1].append(u)
+        acc += unit_size[u]
+        remaining -= unit_size[u]
+    return tasks
+
+
+def _run_task(task_pairs: list[list[tuple[Path, Path]]],
+              task_options: dict[str, Any]) -> list[FileSummary]:
+    """Flag the units of one dask task one after the other; summaries in the same order."""
+    return [s for unit_pairs in task_pairs for s in _run_unit(unit_pairs, task_options)]
+
+
 def _run_dask(
     pairs: list[tuple[Path, Path]],
     units: list[list[int]],
     task_options: dict[str, Any],
     client: Any,
-    max_in_flight: int,
+    n_workers: int,
     progress: Any,
 ) -> dict[int, FileSummary]:
     from distributed import as_completed
 
     results: dict[int, FileSummary] = {}
-    # largest units first (longest-processing-time order), so the workers finish together
-    # instead of one flagging a big file alone at the end; results keep the input order
     sizes = []
     for src, _ in pairs:
         try:
             sizes.append(src.stat().st_size)
         except OSError:
             sizes.append(0)
-    order = sorted(range(len(units)), key=lambda u: -sum(sizes[i] for i in units[u]))
-    todo = iter(order)
-    futures = {}
+    tasks = _pack_units(units, sizes, n_workers)
+    todo = iter(tasks)
+    futures: dict[Any, list[int]] = {}
 
-    def submit_next() -> bool:
+    def submit_next() -> Any:
         try:
-            u = next(todo)
+            task = next(todo)
         except StopIteration:
-            return False
-        first = pairs[units[u][0]][0]
-        fut = client.submit(_run_unit, [pairs[i] for i in units[u]], task_options,
-                            key=f"qcflag-file-{units[u][0]}-{first.name}", pure=False)
-        futures[fut] = u
-        return True
+            return None
+        files = [i for u in task for i in units[u]]
+        first = pairs[files[0]][0]
+        fut = client.submit(_run_task, [[pairs[i] for i in units[u]] for u in task],
+                            task_options, key=f"qcflag-file-{files[0]}-{first.name}",
+                            pure=False)
+        futures[fut] = files
+        return fut
 
-    for _ in range(max_in_flight):
-        if not submit_next():
+    # two tasks per worker in flight: each worker starts its next task at once, while the
+    # driver never holds more than a few summaries
+    for _ in range(max(2 * n_workers, 2)):
+        if submit_next() is None:
             break
     pending = as_completed(list(futures))
     for fut in pending:
-        u = futures.pop(fut)
+        files = futures.pop(fut)
         try:
-            results.update(zip(units[u], fut.result(), strict=True))
+            results.update(zip(files, fut.result(), strict=True))
         except BaseException:
             for other in list(futures):
                 other.cancel()
             raise
         fut.release()
         if progress is not None:
-            for _ in units[u]:
+            for _ in files:
                 progress.advance(0)
-        if submit_next():
-            new = next(reversed(futures))
+        new = submit_next()
+        if new is not None:
             pending.add(new)
     return results
 
@@ -729,8 +792,7 @@ def flag_files_parallel(
             try:
                 n = len(client.scheduler_info(n_workers=-1)["workers"]) or workers
                 client.run(warm_worker, options.get("rules"))  # before the first task
-                results = _run_dask(pairs, units, task_options, client, max(2 * n, 2),
-                                    bar)
+                results = _run_dask(pairs, units, task_options, client, n, bar)
                 summary = ArchiveSummary([results[i] for i in range(len(pairs))], workers=n,
                                          scheduler=scheduler or client.scheduler.address)
             finally:

@@ -158,4 +158,46 @@ def test_local_cluster_workers_keep_default_malloc_trimming():
 
     with local_cluster(1) as cluster, Client(cluster) as client:
         env = client.run(lambda: os.environ.get("MALLOC_TRIM_THRESHOLD_"))
+        # and the dashboard-only stack sampler is off (the cluster serves no dashboard)
+        sampling = client.run(lambda dask_worker: "profile" in dask_worker.periodic_callbacks)
     assert list(env.values()) == [None]
+    assert list(sampling.values()) == [False]
+
+
+def test_packing_puts_every_file_in_one_task_largest_first():
+    from qcflag.scale import _pack_units
+
+    rng = np.random.default_rng(3)
+    for n_units, n_workers in ((1, 1), (7, 2), (30, 2), (200, 3), (50, 8)):
+        sizes = rng.integers(0, 9_000_000, size=n_units).tolist()
+        units = [[i] for i in range(n_units)]
+        tasks = _pack_units(units, sizes, n_workers, task_bytes=16_000_000)
+        flat = [u for t in tasks for u in t]
+        assert sorted(flat) == list(range(n_units))  # each unit once
+        assert [sizes[u] for u in flat] == sorted(sizes, reverse=True)  # largest first
+        for t in tasks:  # a task stops at the first unit that reaches its target
+            assert sum(sizes[u] for u in t[:-1]) < 16_000_000
+        assert len(tasks[-1]) == 1  # the run ends on single units
+    # thirty equal small files on two workers: packed, yet enough tasks to balance
+    tasks = _pack_units([[i] for i in range(30)], [2_000_000] * 30, 2, task_bytes=16_000_000)
+    assert 2 * 2 <= len(tasks) < 30
+    assert [len(t) for t in tasks[-2 * 2:]] == [1] * 4
+    # a group of files joined by cruise is one unit and never split
+    tasks = _pack_units([[0, 2], [1]], [5, 7, 5], 1, task_bytes=1)
+    assert tasks == [[0], [1]]
+
+
+def test_packed_tasks_write_what_one_process_writes(archive, tmp_path, monkeypatch):
+    """All files in a single dask task (each still flagged on its own) change nothing."""
+    from qcflag import scale
+
+    monkeypatch.setattr(scale, "_pack_units",
+                        lambda units, sizes, n_workers: [list(range(len(units)))[::-1]])
+    one = flag_files_parallel(archive, tmp_path / "w1", workers=1, history=HISTORY,
+                              progress=False)
+    two = flag_files_parallel(archive, tmp_path / "w2", workers=2, history=HISTORY,
+                              progress=False)
+    names = [p.name for p in archive]
+    assert _same_files(tmp_path / "w1", tmp_path / "w2", names) == []
+    assert [f.input for f in two.files] == [f.input for f in one.files]
+    assert [f.n_levels for f in two.files] == [f.n_levels for f in one.files]
