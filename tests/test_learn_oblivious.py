@@ -117,7 +117,7 @@ def test_sklearn_compatible(estimator, check):
 
 
 # ------------------------------------------------------------------------- evaluators
-@pytest.mark.parametrize("kernel", ["block", "rows"])
+@pytest.mark.parametrize("kernel", ["auto", "codes", "block", "rows"])
 def test_evaluators_equal_a_per_level_reference_walk(fitted, kernels, kernel, monkeypatch):
     est, X, _ = fitted
     rows = np.vstack([X[:300], np.full((3, X.shape[1]), np.nan)])
@@ -136,6 +136,134 @@ def test_evaluators_equal_a_per_level_reference_walk(fitted, kernels, kernel, mo
     assert ObliviousForest(est.ensembles_).raw(rows[:0]).shape == (0, 3)
 
 
+
+def _crafted_forest(depth, n_splits=400, p=5, seed=0):
+    """Three ensembles with awkward thresholds: column 0 has over 64 distinct ones (binary
+    search), column 1 at most 64 (counting), column 3 exactly 65, column 2 NaN ("no
+    split"), +-inf, -0.0 beside 0.0; tree counts leave ragged groups of four trees."""
+    rng = np.random.default_rng(seed)
+    n_trees = -(-n_splits // depth)
+    sizes = (n_trees // 2 + 1, n_trees - n_trees // 2 - 1, 1)
+    s = np.arange(sum(sizes) * depth)
+    col = np.array([0, 0, 1, 3, 2])[s % 5]
+    col[(s % 5 == 4) & (s // 5 % 2 == 1)] = 4
+    pools = {0: rng.normal(size=300), 1: np.round(rng.normal(size=64), 1),
+             2: np.array([-0.0, 0.0, 1.5, np.inf, -np.inf, np.nan]), 3: rng.normal(size=65),
+             4: np.array([2.0])}
+    idx = np.where(col == 2, s // 10, s // 5)  # column 2 takes every other fifth split
+    thr = np.array([pools[c][i % pools[c].size] for c, i in zip(col, idx, strict=True)])
+    ens, start = [], 0
+    for k, nt in enumerate(sizes):
+        part = slice(start, start + nt * depth)
+        v = rng.normal(size=(nt, 1 << depth))
+        ens.append(ObliviousEnsemble(float(k) - 0.5, col[part].reshape(nt, depth),
+                                     thr[part].reshape(nt, depth), v, np.ones_like(v),
+                                     n_features=p))
+        start += nt * depth
+    return ens
+
+
+def _crafted_rows(ens, n=700, seed=1):
+    """Random rows, then rows holding every threshold, its neighbours, NaN, +-inf, -0.0."""
+    rng = np.random.default_rng(seed)
+    p = ens[0].n_features
+    X = rng.normal(size=(n, p))
+    X[rng.random(X.shape) < 0.1] = np.nan
+    t = np.concatenate([e.thresholds.ravel() for e in ens])
+    f = np.concatenate([e.features.ravel() for e in ens])
+    probe = np.concatenate([t, np.nextafter(t, -np.inf), np.nextafter(t, np.inf)])
+    rows = np.repeat(X[:probe.size % n + 1], 1, axis=0)
+    on = np.resize(X, (probe.size, p)).copy()
+    on[np.arange(probe.size), np.tile(f, 3)] = probe
+    special = np.resize(X, (12, p)).copy()
+    special[0:3, :] = [[np.inf], [-np.inf], [-0.0]]
+    special[3:6, :] = np.nan
+    return np.vstack([X, rows, on, special])
+
+
+@pytest.mark.parametrize("depth", [1, 2, 3, 4, 5, 6, 7, 8])
+def test_code_kernel_equals_the_reference_walk_on_awkward_thresholds(depth, monkeypatch):
+    pytest.importorskip("numba")
+    monkeypatch.setattr(oblivious, "USE_NUMBA", True)
+    monkeypatch.setattr(oblivious, "BLOCK_LEVELS", 613)  # several blocks, a ragged last one
+    ens = _crafted_forest(depth)
+    forest = ObliviousForest(ens)
+    assert forest.coded
+    assert forest.n_thr[0] > 64 and forest.n_thr[1] <= 64 and forest.n_thr[3] == 65
+    assert forest.n_thr[2] == 4  # -0.0 and 0.0 are one threshold, NaN none
+    assert (forest.groups[1:-1] - forest.groups[:-2] < 4).any()  # ragged groups
+    X = _crafted_rows(ens)
+    with np.errstate(invalid="ignore"):
+        raw = forest.raw(X, kernel="codes")
+    np.testing.assert_array_equal(raw, forest.raw(X, kernel="block"))
+    for k, e in enumerate(ens):
+        np.testing.assert_array_equal(raw[:, k], _reference_raw(e, X))
+
+
+def test_forests_the_code_kernel_cannot_take_use_the_float_kernel(monkeypatch):
+    pytest.importorskip("numba")
+    monkeypatch.setattr(oblivious, "USE_NUMBA", True)
+    deep = _crafted_forest(9, n_splits=40)
+    rng = np.random.default_rng(2)
+    v = rng.normal(size=(256, 2))
+    many = ObliviousEnsemble(0.1, np.zeros((256, 1), np.int64), rng.normal(size=(256, 1)),
+                             v, np.ones_like(v), n_features=2)  # 256 thresholds, one column
+    for ens in (deep, [many]):
+        forest = ObliviousForest(ens)
+        assert not forest.coded
+        with pytest.raises(ValueError, match="8-bit"):
+            forest.raw(np.zeros((2, ens[0].n_features)), kernel="codes")
+        X = _crafted_rows(ens, n=300)
+        raw = forest.raw(X)
+        for k, e in enumerate(ens):
+            np.testing.assert_array_equal(raw[:, k], _reference_raw(e, X))
+    assert ObliviousForest(_crafted_forest(8, n_splits=40)).coded
+
+
+@pytest.mark.parametrize("kernel", ["auto", "block", "rows"])
+def test_infinite_values_are_found_in_every_column(kernels, kernel, monkeypatch):
+    monkeypatch.setattr(oblivious, "BLOCK_LEVELS", 97)
+    v = np.arange(8.0).reshape(2, 4)
+    ens = ObliviousEnsemble(0.0, np.zeros((2, 2), np.int64), np.array([[0.0, 1.0]] * 2),
+                            v, np.ones_like(v), n_features=4)  # splits on column 0 only
+    forest = ObliviousForest([ens])
+    X = np.random.default_rng(3).normal(size=(300, 4))
+    X[5, 2] = np.nan
+    assert not forest.raw_checked(X, kernel=kernel)[1]
+    for row, col, val in ((299, 3, np.inf), (0, 1, -np.inf), (150, 0, np.inf)):
+        Xi = X.copy()
+        Xi[row, col] = val
+        raw, has_inf = forest.raw_checked(Xi, kernel=kernel)
+        assert has_inf
+        np.testing.assert_array_equal(raw[:, 0], _reference_raw(ens, Xi))
+
+
+def test_prediction_refuses_infinite_values_in_columns_no_split_uses(kernels):
+    X, y = _rule_data(n=1200, seed=8)
+    X = np.column_stack([X, np.full(X.shape[0], 3.0)])  # constant: never split on
+    est = CumulativeObliviousClassifier(n_trees=8, depth=3).fit(X, y)
+    assert not any((e.features == X.shape[1] - 1).any() for e in est.ensembles_)
+    Xi = X[:50].copy()
+    Xi[-1, -1] = np.inf
+    for method in (est.predict_proba, est.predict, est.cumulative_proba):
+        with pytest.raises(ValueError, match="infinity"):
+            method(Xi)
+    Xi[-1, -1] = np.nan  # NaN stays allowed
+    assert est.predict_proba(Xi).shape == (50, 4)
+
+
+def test_layouts_and_read_only_inputs_give_the_same_bits(fitted, kernels):
+    est, X, _ = fitted
+    forest = ObliviousForest(est.ensembles_)
+    ref = forest.raw(X)
+    ro = X.copy()
+    ro.flags.writeable = False
+    wide = np.repeat(X, 2, axis=0)
+    for Xv in (np.asfortranarray(X), wide[::2], ro, np.asarray(X, dtype=np.float32)):
+        expect = ref if Xv.dtype == np.float64 else forest.raw(Xv.astype(np.float64))
+        np.testing.assert_array_equal(forest.raw(Xv), expect)
+    np.testing.assert_array_equal(est.predict_proba(np.asfortranarray(X)), est.predict_proba(X))
+
 def test_numba_and_numpy_give_the_same_probabilities(fitted, monkeypatch):
     pytest.importorskip("numba")
     est, X, _ = fitted
@@ -144,7 +272,7 @@ def test_numba_and_numpy_give_the_same_probabilities(fitted, monkeypatch):
     slow = est.predict_proba(X)
     monkeypatch.setattr(oblivious, "USE_NUMBA", True)
     np.testing.assert_array_equal(est.predict_proba(X), slow)
-    assert oblivious._kernels["predict_block"] is not None
+    assert oblivious._kernels["predict_codes"] is not None
 
 
 def test_numba_is_imported_only_when_an_oblivious_model_is_used():

@@ -38,10 +38,14 @@ Evaluation
 ----------
 :class:`ObliviousForest` stacks any number of ensembles of one depth; a numba kernel of our
 own (imported on first use, like :mod:`qcflag.learn.trees`) evaluates blocks of levels, trees
-outer and levels inner so the comparisons vectorise. Without numba (or with
-``USE_NUMBA = False``) a numpy evaluator does the same operations in the same order; both
-give the same bits. The fitting kernels have numpy twins as well (same summation order, same
-fitted model).
+outer and levels inner so the comparisons vectorise. The kernel codes each value into 8 bits
+first -- the number of its column's distinct split thresholds below it, NaN 255 -- so that
+``not (x <= t)`` becomes ``code(x) >= rank(t) + 1`` and the comparisons run on bytes; forests
+deeper than 8 or with more than 255 thresholds on one column go to a kernel that compares raw
+float64 values. Both count the infinite values they read, so prediction needs no separate
+finiteness scan of its input. Without numba (or with ``USE_NUMBA = False``) a numpy evaluator
+does the same operations in the same order; all give the same bits. The fitting kernels have
+numpy twins as well (same summation order, same fitted model).
 
 References
 ----------
@@ -305,24 +309,31 @@ def _predict_block_py(  # pragma: no cover - runs compiled by numba (see _kernel
     X: NDArray[np.float64], start: int, stop: int, cols: NDArray[np.int64],
     feats: NDArray[np.int64], thrs: NDArray[np.float64], values: NDArray[np.float64],
     tree_ens: NDArray[np.int64], baselines: NDArray[np.float64], out: NDArray[np.float64],
-) -> None:
+) -> int:
     """Evaluate levels ``start:stop`` of `X` into ``out[start:stop]`` (numba kernel).
 
+    The float kernel, for forests the 8-bit kernel (:func:`_predict_codes_py`) cannot take.
     Levels go 256 at a time: the used columns (`cols`; `feats` index into them) are copied
     into a column-major buffer, then for each tree the comparisons run over all 256 levels
     (vectorised), up to four depths per pass, and the leaf values are added tree by tree in
-    the trees' order.
+    the trees' order. Returns the number of infinite values in rows ``start:stop`` of `X`
+    (all columns), so the caller can skip a separate finiteness scan.
     """
     n_trees, depth = feats.shape
     n_cols = cols.size
     n_ens = baselines.size
     sub = 256
-    xt = np.empty((n_cols, sub), dtype=np.float64)
+    # rows padded past 2 KiB multiples: the copy's column writes do not all hit one cache set
+    xt = np.empty((n_cols, sub + 8), dtype=np.float64)
     leaf = np.zeros(sub, dtype=np.uint64)  # unsigned: no negative-index wraparound code
     one, two, three = np.uint64(1), np.uint64(2), np.uint64(3)
-    acc = np.empty((n_ens, sub), dtype=np.float64)
+    acc = np.empty((n_ens, sub + 8), dtype=np.float64)
+    n_inf = 0
     for s0 in range(start, stop, sub):
         m = min(sub, stop - s0)
+        for i in range(s0, s0 + m):
+            for j in range(X.shape[1]):
+                n_inf += abs(X[i, j]) == np.inf
         for i in range(m):
             for j in range(n_cols):
                 xt[j, i] = X[s0 + i, cols[j]]
@@ -377,7 +388,146 @@ def _predict_block_py(  # pragma: no cover - runs compiled by numba (see _kernel
         for i in range(m):
             for k in range(n_ens):
                 out[s0 + i, k] = acc[k, i]
+    return n_inf
 
+
+def _predict_codes_py(  # pragma: no cover - runs compiled by numba (see _kernel)
+    X: NDArray[np.float64], start: int, stop: int, cols: NDArray[np.int64],
+    table: NDArray[np.float64], n_thr: NDArray[np.int64], feats: NDArray[np.int64],
+    tcodes: NDArray[np.uint8], values: NDArray[np.float64], groups: NDArray[np.int64],
+    group_ens: NDArray[np.int64], baselines: NDArray[np.float64], out: NDArray[np.float64],
+) -> int:
+    """Evaluate levels ``start:stop`` of `X` on 8-bit codes into ``out[start:stop]``.
+
+    Levels go 512 at a time. Coding: the used columns (`cols`) are copied into a
+    column-major buffer; a value's code is the number of its column's distinct split
+    thresholds (``table[j, :n_thr[j]]``, increasing, padded with +inf) below it, and 255
+    for NaN. Then ``not (x <= t)`` holds exactly when ``code(x) >= tcodes`` (the position
+    of ``t`` among the thresholds plus one; 0 for a "no split" NaN threshold), so the
+    comparisons of every tree and depth run on bytes, 64 levels per vector instruction
+    where raw float64 values give 8. Columns with at most 64 thresholds are coded by
+    counting, vectorised over the levels, the others by a branch-free binary search.
+    Leaves are built most significant depths first (``leaf << 3 | three bits``: constant
+    shifts). Trees go in groups of up to four of one ensemble (``groups``: first tree of
+    each group and an end marker; ``group_ens``: their ensemble); a group's leaf values
+    are added to each level's sum in one pass, tree by tree in the trees' order, so the
+    sums have the bits of the float kernel's. Returns the number of infinite values in
+    rows ``start:stop`` of `X` (all columns).
+    """
+    depth = feats.shape[1]
+    n_cols = cols.size
+    n_ens = baselines.size
+    sub = 512
+    pad = sub + 8  # rows past 4 KiB multiples: column writes spread over cache sets
+    xt = np.empty((n_cols, pad), dtype=np.float64)
+    codes = np.empty((n_cols, sub), dtype=np.uint8)
+    cnt = np.empty(sub, dtype=np.int64)
+    leaf = np.zeros((4, sub), dtype=np.uint8)
+    acc = np.empty((n_ens, pad), dtype=np.float64)
+    top = depth - 3 * ((depth - 1) // 3)  # depths of the first (most significant) pass
+    n_inf = 0
+    for s0 in range(start, stop, sub):
+        m = min(sub, stop - s0)
+        for i in range(s0, s0 + m):
+            for j in range(X.shape[1]):
+                n_inf += abs(X[i, j]) == np.inf
+        for i0 in range(0, m, 8):  # eight levels per column: whole cache lines written
+            q1 = min(8, m - i0)
+            for j in range(n_cols):
+                c = cols[j]
+                for q in range(q1):
+                    xt[j, i0 + q] = X[s0 + i0 + q, c]
+        for j in range(n_cols):
+            th = table[j]
+            xb = xt[j]
+            cj = codes[j]
+            n = n_thr[j]
+            if n <= 64:
+                for i in range(m):
+                    cnt[i] = 0
+                k = 0
+                while k + 8 <= n:
+                    t0, t1, t2, t3 = th[k], th[k + 1], th[k + 2], th[k + 3]
+                    t4, t5, t6, t7 = th[k + 4], th[k + 5], th[k + 6], th[k + 7]
+                    for i in range(m):
+                        x = xb[i]
+                        cnt[i] += (((np.int64(t0 < x) + np.int64(t1 < x))
+                                    + (np.int64(t2 < x) + np.int64(t3 < x)))
+                                   + ((np.int64(t4 < x) + np.int64(t5 < x))
+                                      + (np.int64(t6 < x) + np.int64(t7 < x))))
+                    k += 8
+                while k < n:
+                    tk = th[k]
+                    for i in range(m):
+                        cnt[i] += tk < xb[i]
+                    k += 1
+                for i in range(m):
+                    cj[i] = 255 if xb[i] != xb[i] else cnt[i]
+            else:
+                for i in range(m):
+                    x = xb[i]
+                    b = 0
+                    b += 128 * (th[b + 127] < x)
+                    b += 64 * (th[b + 63] < x)
+                    b += 32 * (th[b + 31] < x)
+                    b += 16 * (th[b + 15] < x)
+                    b += 8 * (th[b + 7] < x)
+                    b += 4 * (th[b + 3] < x)
+                    b += 2 * (th[b + 1] < x)
+                    b += th[b] < x
+                    cj[i] = 255 if x != x else b
+        for k in range(n_ens):
+            for i in range(m):
+                acc[k, i] = baselines[k]
+        for g in range(groups.size - 1):
+            t_first = groups[g]
+            n_g = groups[g + 1] - t_first
+            for q in range(n_g):
+                t = t_first + q
+                lq = leaf[q]
+                hi = depth
+                r = top
+                while hi > 0:
+                    lo = hi - r
+                    c0, u0 = codes[feats[t, lo]], tcodes[t, lo]
+                    if r == 3:
+                        c1, u1 = codes[feats[t, lo + 1]], tcodes[t, lo + 1]
+                        c2, u2 = codes[feats[t, lo + 2]], tcodes[t, lo + 2]
+                        if hi == depth:
+                            for i in range(m):
+                                lq[i] = (np.uint8(c0[i] >= u0) | (np.uint8(c1[i] >= u1) << 1)
+                                         | (np.uint8(c2[i] >= u2) << 2))
+                        else:
+                            for i in range(m):
+                                lq[i] = ((lq[i] << 3) | np.uint8(c0[i] >= u0)
+                                         | (np.uint8(c1[i] >= u1) << 1)
+                                         | (np.uint8(c2[i] >= u2) << 2))
+                    elif r == 2:
+                        c1, u1 = codes[feats[t, lo + 1]], tcodes[t, lo + 1]
+                        for i in range(m):
+                            lq[i] = np.uint8(c0[i] >= u0) | (np.uint8(c1[i] >= u1) << 1)
+                    else:
+                        for i in range(m):
+                            lq[i] = np.uint8(c0[i] >= u0)
+                    hi = lo
+                    r = 3
+            ak = acc[group_ens[g]]
+            if n_g == 4:
+                v0, v1, v2, v3 = (values[t_first], values[t_first + 1], values[t_first + 2],
+                                  values[t_first + 3])
+                l0, l1, l2, l3 = leaf[0], leaf[1], leaf[2], leaf[3]
+                for i in range(m):
+                    ak[i] = (((ak[i] + v0[l0[i]]) + v1[l1[i]]) + v2[l2[i]]) + v3[l3[i]]
+            else:
+                for q in range(n_g):
+                    vq = values[t_first + q]
+                    lq = leaf[q]
+                    for i in range(m):
+                        ak[i] += vq[lq[i]]
+        for i in range(m):
+            for k in range(n_ens):
+                out[s0 + i, k] = acc[k, i]
+    return n_inf
 
 def _predict_rows_py(  # pragma: no cover - runs compiled by numba; the slower variant
     X: NDArray[np.float64], start: int, stop: int, cols: NDArray[np.int64],
@@ -704,30 +854,98 @@ class ObliviousForest:
         self.values = np.ascontiguousarray(np.concatenate(
             [e.leaf_values for e in ensembles]) if ensembles else np.zeros((0, 1 << depth)))
         self.tree_ens = np.repeat(np.arange(len(ensembles)), [e.n_trees for e in ensembles])
+        self._build_codes()
 
-    def raw(self, X: NDArray[np.float64], *, kernel: str = "block") -> NDArray[np.float64]:
+    def _build_codes(self) -> None:
+        """Arrays of the 8-bit kernel; ``coded`` is False when it cannot take the forest.
+
+        ``table[j, :n_thr[j]]`` are the distinct non-NaN thresholds of column ``j`` in
+        increasing order (padded with +inf), ``tcodes`` each split's position among them
+        plus one (0 for a NaN threshold), ``groups`` the first tree of each run of up to
+        four trees of one ensemble (and the number of trees), ``group_ens`` their ensemble.
+        Depths beyond 8 (leaves do not fit a byte) or more than 255 distinct thresholds on
+        one column (codes do not fit a byte beside NaN's) leave the forest to the float
+        kernel.
+        """
+        n_cols = self.columns.size
+        n_trees, depth = self.feats.shape
+        self.table = np.full((n_cols, 256), np.inf)
+        self.n_thr = np.zeros(n_cols, dtype=np.int64)
+        flat_f, flat_t = self.feats.ravel(), self.thrs.ravel()
+        known = ~np.isnan(flat_t)
+        rank = np.zeros(flat_t.size, dtype=np.int64)
+        self.coded = depth <= 8
+        for j in range(n_cols):  # loop over columns, vectorised over their splits
+            sel = np.flatnonzero(known & (flat_f == j))
+            t = np.unique(flat_t[sel])  # -0.0 and 0.0 are one threshold, as for `<=`
+            self.n_thr[j] = t.size
+            if t.size > 255:
+                self.coded = False
+                break
+            self.table[j, :t.size] = t
+            rank[sel] = np.searchsorted(t, flat_t[sel]) + 1
+        self.tcodes = rank.reshape(n_trees, depth).astype(np.uint8)
+        starts = []
+        for k in range(self.baselines.size):  # loop over ensembles: runs of four trees
+            lo, hi = np.searchsorted(self.tree_ens, [k, k + 1])
+            starts.append(np.arange(lo, hi, 4))
+        self.groups = np.concatenate([*starts, [n_trees]]).astype(np.int64)
+        self.group_ens = self.tree_ens[self.groups[:-1]].astype(np.int64)
+
+    def raw(self, X: NDArray[np.float64], *, kernel: str = "auto") -> NDArray[np.float64]:
         """Log-odds of every ensemble, shape (n_samples, n_ensembles).
 
         Parameters
         ----------
         X : ndarray of shape (n_samples, n_features)
             Raw features.
-        kernel : {"block", "rows"}, default="block"
-            Loop order of the numba kernel (trees outer / levels outer); both give the
-            same bits as the numpy evaluator.
+        kernel : {"auto", "codes", "block", "rows"}, default="auto"
+            Numba kernel: 8-bit codes, float64 values with trees outer, or levels outer;
+            "auto" takes "codes" when the forest allows (``coded``), else "block". All
+            give the same bits as the numpy evaluator.
         """
-        X = np.ascontiguousarray(X, dtype=np.float64)
+        return self.raw_checked(X, kernel=kernel)[0]
+
+    def raw_checked(
+        self, X: NDArray[np.float64], *, kernel: str = "auto"
+    ) -> tuple[NDArray[np.float64], bool]:
+        """:meth:`raw` and whether any value of `X` (any column) is infinite.
+
+        The compiled kernels count infinite values while they read the levels, so callers
+        that must refuse them need no separate scan of `X`.
+        """
+        X = np.asarray(X, dtype=np.float64)
+        if X.ndim != 2:
+            raise ValueError("X must be two-dimensional")
+        if not (X.flags.c_contiguous or X.flags.f_contiguous):
+            X = np.ascontiguousarray(X)  # kernels are compiled for C and F layouts only
         n = X.shape[0]
         out = np.empty((n, self.baselines.size), dtype=np.float64)
-        fn = _kernel("predict_block" if kernel == "block" else "predict_rows")
+        if kernel == "auto":
+            kernel = "codes" if self.coded else "block"
+        if kernel == "codes" and not self.coded:
+            raise ValueError("this forest cannot be evaluated on 8-bit codes")
+        fn = _kernel(f"predict_{kernel}")
+        if fn is None or kernel == "rows":
+            for start in range(0, n, BLOCK_LEVELS):
+                stop = min(start + BLOCK_LEVELS, n)
+                if fn is None:
+                    self._block_numpy(X, start, stop, out)
+                else:
+                    fn(X, start, stop, self.columns, self.feats, self.thrs, self.values,
+                       self.tree_ens, self.baselines, out)
+            return out, bool(np.isinf(X).any())
+        n_inf = 0
         for start in range(0, n, BLOCK_LEVELS):
             stop = min(start + BLOCK_LEVELS, n)
-            if fn is not None:
-                fn(X, start, stop, self.columns, self.feats, self.thrs, self.values,
-                   self.tree_ens, self.baselines, out)
+            if kernel == "codes":
+                n_inf += fn(X, start, stop, self.columns, self.table, self.n_thr, self.feats,
+                            self.tcodes, self.values, self.groups, self.group_ens,
+                            self.baselines, out)
             else:
-                self._block_numpy(X, start, stop, out)
-        return out
+                n_inf += fn(X, start, stop, self.columns, self.feats, self.thrs, self.values,
+                            self.tree_ens, self.baselines, out)
+        return out, n_inf > 0
 
     def _block_numpy(self, X: NDArray[np.float64], start: int, stop: int,
                      out: NDArray[np.float64]) -> None:
