@@ -8,8 +8,8 @@ Figures, all measured in this one run on this machine:
   ``qcflag.scale.warm_worker`` (imports, reference fields, rule set: a fixed cost per
   process, reported in its own row), exactly as the dask workers are;
 * cost growth from the small to the large archive (10x the levels): the ratio of the
-  per-level times (1.0 = linear; the small archive's time is the best of ``REPEATS`` runs,
-  the large one's a single run, so noise can only push the ratio up);
+  per-level times (1.0 = linear): the single run on the large archive against the mean of
+  the ``REPEATS`` runs on the small one;
 * speed-up from 1 to 2 worker processes on the small archive, both measured the same way:
   a dask LocalCluster of 1 (then 2) single-threaded worker processes is started (with
   ``qcflag.scale.local_cluster``, as ``qcflag flag --workers N`` does) and each
@@ -204,8 +204,9 @@ def main(quick: bool = False) -> list[dict[str, object]]:
         lr = loop_ratio(60 if quick else 200)
 
         lps = r_large["n_levels"] / r_large["seconds"]
-        growth = (r_large["seconds"] / r_large["n_levels"]) / (
-            r_small["seconds"] / r_small["n_levels"])
+        # one run at 10x against the mean of the runs at 1x: like against like
+        small_mean = sum(r_small["all_seconds"]) / len(r_small["all_seconds"])
+        growth = (r_large["seconds"] / r_large["n_levels"]) / (small_mean / r_small["n_levels"])
         speedup = r_c1["seconds"] / r_c2["seconds"]
         ratio = lr["loop"] / lr["vectorised"]
         mem = r_large["maxrss_gib"]
@@ -234,8 +235,8 @@ def main(quick: bool = False) -> list[dict[str, object]]:
             {"benchmark": "flagging",
              "figure": f"per-profile loop / vectorised ({lr['n_profiles']} profiles)",
              "value": ratio, "unit": "x", "target": "> 1", "met": ratio > 1},
-            {"benchmark": "flagging", "figure": "1-process seconds: 1x / 10x archive",
-             "value": f"{r_small['seconds']:.1f} / {r_large['seconds']:.1f}", "unit": "s"},
+            {"benchmark": "flagging", "figure": "1-process seconds: 1x (mean) / 10x archive",
+             "value": f"{small_mean:.1f} / {r_large['seconds']:.1f}", "unit": "s"},
             {"benchmark": "flagging",
              "figure": f"1x archive seconds, best of {REPEATS}: in-process / 1 dask worker / "
                        "2 dask workers",
