@@ -191,6 +191,69 @@ def test_fused_linear_scores_equal_the_standardised_product(monkeypatch):
         np.testing.assert_allclose(fused, Z @ coef, rtol=0, atol=1e-12)
 
 
+
+def test_expit_has_the_bits_of_the_two_sided_formula():
+    def two_sided(x):  # 1 / (1 + exp(-x)) for x >= 0, e / (1 + e) with e = exp(x) elsewhere
+        out = np.empty_like(x, dtype=np.float64)
+        pos = x >= 0
+        out[pos] = 1.0 / (1.0 + np.exp(-x[pos]))
+        e = np.exp(x[~pos])
+        out[~pos] = e / (1.0 + e)
+        return out
+
+    rng = np.random.default_rng(0)
+    special = np.array([0.0, -0.0, np.nan, -np.nan, np.inf, -np.inf, 5e-324, -5e-324,
+                        745.2, -745.2, 709.8, -709.8, 36.7, -36.7])
+    for x in (rng.normal(scale=8, size=(1001, 3)), special,
+              rng.normal(size=(9, 4))[:, ::3], rng.normal(size=33).astype(np.float32)):
+        got, ref = trees.expit(x), two_sided(x)
+        assert got.dtype == np.float64 and got.shape == x.shape
+        np.testing.assert_array_equal(got.view(np.uint64), ref.view(np.uint64))
+
+
+def test_ordinal_logistic_probabilities_are_differences_of_the_cumulatives():
+    from qcflag.learn import estimators
+
+    X, y = _ordinal_data(n=900, nan_share=0.2)
+    est = OrdinalLogistic().fit(X, y)
+    eta = estimators._linear_scores(X, est.fill_, est.mean_, est.scale_, est.coef_)
+    cum = trees.expit(est.theta_[None, :] - eta[:, None])
+    ref = np.diff(np.hstack([np.zeros((X.shape[0], 1)), cum, np.ones((X.shape[0], 1))]),
+                  axis=1)
+    np.testing.assert_array_equal(est.predict_proba(X), ref)
+
+
+def test_linear_scores_stop_at_infinite_values(monkeypatch):
+    from qcflag.learn import estimators
+
+    X, y = _ordinal_data(n=500)
+    est = OrdinalLogistic().fit(X, y)
+    monkeypatch.setattr(estimators, "_BLOCK_LEVELS", 77)
+    args = (est.fill_, est.mean_, est.scale_, est.coef_)
+    np.testing.assert_array_equal(
+        estimators._linear_scores(X, *args, check_finite=True),
+        estimators._linear_scores(X, *args))
+    for row, col, val in ((499, 4, np.inf), (0, 0, -np.inf), (300, 2, np.inf)):
+        Xi = X.copy()
+        Xi[row, col] = val
+        assert estimators._linear_scores(Xi, *args, check_finite=True) is None
+
+
+@pytest.mark.parametrize("cls", [OrdinalLogistic, NominalLogistic,
+                                 CumulativeBoostedClassifier])
+def test_prediction_refuses_infinite_values_in_every_column(cls):
+    X, y = _ordinal_data(n=600)
+    est = cls(**({"max_iter": 5} if cls is CumulativeBoostedClassifier else {})).fit(X, y)
+    for col in range(X.shape[1]):
+        for val in (np.inf, -np.inf):
+            Xi = X[:40].copy()
+            Xi[-1, col] = val
+            with pytest.raises(ValueError, match="infinity"):
+                est.predict_proba(Xi)
+    Xi = X[:40].copy()
+    Xi[-1] = np.nan  # missing values stay allowed
+    assert np.isfinite(est.predict_proba(Xi)).all()
+
 def test_ordinal_logistic_predict_matches_mord_rule():
     X, y = _ordinal_data()
     est = OrdinalLogistic(max_samples=None).fit(X, y)

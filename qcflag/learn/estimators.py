@@ -175,10 +175,16 @@ class _GradeEstimator(ClassifierMixin, BaseEstimator):
         check_classification_targets(y)
         return X, y
 
-    def _validate_predict(self, X: ArrayLike) -> NDArray[np.float64]:
+    def _validate_predict(self, X: ArrayLike, *, finite: bool = True) -> NDArray[np.float64]:
+        """Run scikit-learn's checks of a prediction input.
+
+        ``finite=False`` skips the scan for infinite values: the caller then detects them on
+        the way and calls this again with ``finite=True`` to raise scikit-learn's error.
+        """
         check_is_fitted(self)
         return validate_data(
-            self, X, reset=False, ensure_all_finite="allow-nan", dtype=np.float64
+            self, X, reset=False, ensure_all_finite="allow-nan" if finite else False,
+            dtype=np.float64,
         )
 
     def _pad(self, proba_seen: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -280,24 +286,41 @@ _BLOCK_LEVELS = 8192
 
 def _linear_scores(
     X: NDArray[np.float64], fill: NDArray[np.float64], mean: NDArray[np.float64],
-    scale: NDArray[np.float64], coef: NDArray[np.float64],
-) -> NDArray[np.float64]:
+    scale: NDArray[np.float64], coef: NDArray[np.float64], *, check_finite: bool = False,
+) -> NDArray[np.float64] | None:
     """``_standardise(X, ...) @ coef`` in one cache-blocked pass, shape (n, k) or (n,).
 
     The centring and scaling are folded into the weights (``coef / scale``) and an offset,
     so each block of levels is imputed and arcsinh-transformed in place and multiplied
     once. Equal to the unfused product up to rounding (about 1e-15 relative).
+
+    With ``check_finite``, returns None as soon as a block's transformed values are not all
+    finite, which happens when `X` holds an infinite value (its arcsinh is infinite, so the
+    block's sum is not finite; finite values cannot overflow the sum, each being at most
+    about 710 in magnitude): prediction then needs no separate scan for infinities.
     """
     # C order whatever the layout of coef, so a reloaded model multiplies identically
     W = np.ascontiguousarray(coef / (scale if coef.ndim == 1 else scale[:, None]))
     offset = -(mean @ W)
     n = X.shape[0]
     out = np.empty((n, *coef.shape[1:]), dtype=np.float64)
-    for start in range(0, n, _BLOCK_LEVELS):
-        Z = np.array(X[start:start + _BLOCK_LEVELS], dtype=np.float64, order="C")
-        np.copyto(Z, np.broadcast_to(fill, Z.shape), where=np.isnan(Z))
+    # one buffer for every block (a fresh one per block costs its page faults each time)
+    block = max(1, min(_BLOCK_LEVELS, n))
+    Zb = np.empty((block, X.shape[1]), dtype=np.float64)
+    Mb = np.empty((block, X.shape[1]), dtype=bool)
+    fill_b = np.broadcast_to(fill, Zb.shape)
+    for start in range(0, n, block):
+        m = min(block, n - start)
+        Z, M = Zb[:m], Mb[:m]
+        np.copyto(Z, X[start:start + m], casting="unsafe")
+        np.isnan(Z, out=M)
+        np.copyto(Z, fill_b[:m], where=M)
         np.arcsinh(Z, out=Z)
-        np.matmul(Z, W, out=out[start:start + _BLOCK_LEVELS])
+        if check_finite:
+            with np.errstate(invalid="ignore"):  # inf - inf in the sum is what we look for
+                if not np.isfinite(Z.sum()):
+                    return None
+        np.matmul(Z, W, out=out[start:start + m])
     out += offset
     return out
 
@@ -572,14 +595,24 @@ class OrdinalLogistic(_GradeEstimator):
 
     def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
         """Probability of each class, shape (n_samples, n_classes), rows sum to 1."""
-        X = self._validate_predict(X)
+        check_is_fitted(self)
         n_seen = int(self.seen_.sum())
         if n_seen < 2:
+            X = self._validate_predict(X)
             return self._pad(np.ones((X.shape[0], 1)))
-        eta = _linear_scores(X, self.fill_, self.mean_, self.scale_, self.coef_)
+        X = self._validate_predict(X, finite=False)  # infinities: found on the way
+        eta = _linear_scores(X, self.fill_, self.mean_, self.scale_, self.coef_,
+                             check_finite=True)
+        if eta is None:
+            X = self._validate_predict(X)  # raises scikit-learn's error for infinite values
+            eta = _linear_scores(X, self.fill_, self.mean_, self.scale_, self.coef_)
         cum = _sigmoid(self.theta_[None, :] - eta[:, None])  # P(y <= k)
-        cum = np.hstack([np.zeros((X.shape[0], 1)), cum, np.ones((X.shape[0], 1))])
-        return self._pad(np.diff(cum, axis=1))
+        n, m = cum.shape
+        out = np.empty((n, m + 1))  # differences of 0, P(y <= k)..., 1
+        out[:, 0] = cum[:, 0]
+        np.subtract(cum[:, 1:], cum[:, :-1], out=out[:, 1:m])
+        np.subtract(1.0, cum[:, m - 1], out=out[:, m])
+        return self._pad(out)
 
     def contributions(self, X: ArrayLike) -> NDArray[np.float64]:
         """Coefficient times standardised value, shape (n_samples, n_features)."""
@@ -743,13 +776,18 @@ class _CumulativeTrees(_GradeEstimator):
 
     def cumulative_proba(self, X: ArrayLike) -> NDArray[np.float64]:
         """Monotone ``P(y > k)`` per threshold between seen classes, shape (n, n_seen - 1)."""
-        X = self._validate_predict(X)
+        check_is_fitted(self)
         if not self.ensembles_:
+            X = self._validate_predict(X)
             return np.zeros((X.shape[0], 0))
+        X = self._validate_predict(X, finite=False)  # infinities: the kernels count them
         forest = getattr(self, "_forest", None)
         if forest is None:  # ensembles_ set by hand: build the evaluator without caching it
             forest = self._evaluator(self.ensembles_)
-        gt = expit(forest.raw(X))
+        raw, has_inf = forest.raw_checked(X)
+        if has_inf:
+            self._validate_predict(X)  # raises scikit-learn's error for infinite values
+        gt = expit(raw)
         return np.minimum.accumulate(gt, axis=1)
 
     def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
