@@ -192,7 +192,8 @@ def test_fused_linear_scores_equal_the_standardised_product(monkeypatch):
 
 
 
-def test_expit_has_the_bits_of_the_two_sided_formula():
+@pytest.mark.parametrize("chunk", [7, 16_384])
+def test_expit_has_the_bits_of_the_two_sided_formula(chunk, monkeypatch):
     def two_sided(x):  # 1 / (1 + exp(-x)) for x >= 0, e / (1 + e) with e = exp(x) elsewhere
         out = np.empty_like(x, dtype=np.float64)
         pos = x >= 0
@@ -201,10 +202,11 @@ def test_expit_has_the_bits_of_the_two_sided_formula():
         out[~pos] = e / (1.0 + e)
         return out
 
+    monkeypatch.setattr(trees, "_EXPIT_CHUNK", chunk)  # 7: many chunks, a ragged last one
     rng = np.random.default_rng(0)
     special = np.array([0.0, -0.0, np.nan, -np.nan, np.inf, -np.inf, 5e-324, -5e-324,
                         745.2, -745.2, 709.8, -709.8, 36.7, -36.7])
-    for x in (rng.normal(scale=8, size=(1001, 3)), special,
+    for x in (rng.normal(scale=8, size=(7001, 3)), special,
               rng.normal(size=(9, 4))[:, ::3], rng.normal(size=33).astype(np.float32)):
         got, ref = trees.expit(x), two_sided(x)
         assert got.dtype == np.float64 and got.shape == x.shape

@@ -429,6 +429,25 @@ def test_probabilities_sum_to_one_and_cumulatives_decrease(fitted):
     assert set(np.unique(est.predict(Z))) <= {1, 2, 3, 4}
 
 
+def test_cumulatives_are_the_running_minimum_of_the_threshold_probabilities():
+    from qcflag.learn.trees import expit
+
+    est = CumulativeObliviousClassifier()
+    est.ensembles_ = _crafted_forest(4, n_splits=60)  # random leaves: thresholds cross
+    est.classes_, est.seen_ = np.array([1, 2, 3, 4]), np.ones(4, dtype=bool)
+    est.n_features_in_ = 5
+    X = _crafted_rows(est.ensembles_, n=400)
+    X = X[~np.isinf(X).any(axis=1)]
+    gt = expit(ObliviousForest(est.ensembles_).raw(X))
+    assert (gt[:, 1:] > gt[:, :-1]).any()  # there is something to take the minimum of
+    cum = est.cumulative_proba(X)
+    np.testing.assert_array_equal(cum, np.minimum.accumulate(gt, axis=1))
+    p = est.predict_proba(X)
+    np.testing.assert_array_equal(p[:, 1:3], cum[:, :2] - cum[:, 1:])
+    np.testing.assert_array_equal(p[:, 0], 1.0 - cum[:, 0])
+    np.testing.assert_array_equal(p[:, 3], cum[:, 2])
+
+
 def test_contributions_add_up_to_the_log_odds(fitted):
     est, X, _ = fitted
     for e in est.ensembles_:

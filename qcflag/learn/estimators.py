@@ -788,7 +788,9 @@ class _CumulativeTrees(_GradeEstimator):
         if has_inf:
             self._validate_predict(X)  # raises scikit-learn's error for infinite values
         gt = expit(raw)
-        return np.minimum.accumulate(gt, axis=1)
+        for k in range(1, gt.shape[1]):  # running minimum (np.minimum.accumulate along
+            np.minimum(gt[:, k - 1], gt[:, k], out=gt[:, k])  # rows is slower)
+        return gt
 
     def predict_proba(self, X: ArrayLike) -> NDArray[np.float64]:
         """Probability of each class, shape (n_samples, n_classes), rows sum to 1."""

@@ -482,33 +482,35 @@ def _predict_codes_py(  # pragma: no cover - runs compiled by numba (see _kernel
         for g in range(groups.size - 1):
             t_first = groups[g]
             n_g = groups[g + 1] - t_first
-            for q in range(n_g):
+            for q in range(n_g):  # rows indexed in 2-D, not taken as views (~10 % faster)
                 t = t_first + q
-                lq = leaf[q]
                 hi = depth
                 r = top
                 while hi > 0:
                     lo = hi - r
-                    c0, u0 = codes[feats[t, lo]], tcodes[t, lo]
+                    f0, u0 = feats[t, lo], tcodes[t, lo]
                     if r == 3:
-                        c1, u1 = codes[feats[t, lo + 1]], tcodes[t, lo + 1]
-                        c2, u2 = codes[feats[t, lo + 2]], tcodes[t, lo + 2]
+                        f1, u1 = feats[t, lo + 1], tcodes[t, lo + 1]
+                        f2, u2 = feats[t, lo + 2], tcodes[t, lo + 2]
                         if hi == depth:
                             for i in range(m):
-                                lq[i] = (np.uint8(c0[i] >= u0) | (np.uint8(c1[i] >= u1) << 1)
-                                         | (np.uint8(c2[i] >= u2) << 2))
+                                leaf[q, i] = (np.uint8(codes[f0, i] >= u0)
+                                              | (np.uint8(codes[f1, i] >= u1) << 1)
+                                              | (np.uint8(codes[f2, i] >= u2) << 2))
                         else:
                             for i in range(m):
-                                lq[i] = ((lq[i] << 3) | np.uint8(c0[i] >= u0)
-                                         | (np.uint8(c1[i] >= u1) << 1)
-                                         | (np.uint8(c2[i] >= u2) << 2))
+                                leaf[q, i] = ((leaf[q, i] << 3)
+                                              | np.uint8(codes[f0, i] >= u0)
+                                              | (np.uint8(codes[f1, i] >= u1) << 1)
+                                              | (np.uint8(codes[f2, i] >= u2) << 2))
                     elif r == 2:
-                        c1, u1 = codes[feats[t, lo + 1]], tcodes[t, lo + 1]
+                        f1, u1 = feats[t, lo + 1], tcodes[t, lo + 1]
                         for i in range(m):
-                            lq[i] = np.uint8(c0[i] >= u0) | (np.uint8(c1[i] >= u1) << 1)
+                            leaf[q, i] = (np.uint8(codes[f0, i] >= u0)
+                                          | (np.uint8(codes[f1, i] >= u1) << 1))
                     else:
                         for i in range(m):
-                            lq[i] = np.uint8(c0[i] >= u0)
+                            leaf[q, i] = np.uint8(codes[f0, i] >= u0)
                     hi = lo
                     r = 3
             ak = acc[group_ens[g]]

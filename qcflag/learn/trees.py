@@ -55,18 +55,34 @@ def expit(x: NDArray[np.float64]) -> NDArray[np.float64]:
     ``1 / (1 + exp(-x))`` where ``x >= 0`` and ``e / (1 + e)`` with ``e = exp(x)``
     elsewhere, in whole-array operations (no masked gathers and scatters): ``e = exp(-|x|)``
     (``minimum(x, -x)``, which keeps a NaN's sign) and the numerator ``maximum(e, x >= 0)``,
-    which is 1 where ``x >= 0`` (there ``e <= 1``), ``e`` elsewhere and NaN for NaN.
+    which is 1 where ``x >= 0`` (there ``e <= 1``), ``e`` elsewhere and NaN for NaN. Runs
+    over chunks of :data:`_EXPIT_CHUNK` values, so the temporaries stay in the cache.
     """
     x = np.asarray(x)
     if not np.issubdtype(x.dtype, np.floating):
         x = x.astype(np.float64)
-    e = np.negative(x)
-    np.minimum(x, e, out=e)  # -|x|; NaN: x itself
-    np.exp(e, out=e)
-    num = np.maximum(e, (x >= 0).astype(e.dtype))
-    e += 1.0
-    num /= e
-    return np.asarray(num, dtype=np.float64)
+    out = np.empty(x.shape, dtype=np.float64)
+    flat, flat_out = np.ascontiguousarray(x).reshape(-1), out.reshape(-1)
+    chunk = max(1, min(_EXPIT_CHUNK, flat.size))
+    e_buf, num_buf = np.empty(chunk, dtype=x.dtype), np.empty(chunk, dtype=x.dtype)
+    for start in range(0, flat.size, chunk):
+        xs = flat[start:start + chunk]
+        e, num = e_buf[:xs.size], num_buf[:xs.size]
+        np.negative(xs, out=e)
+        np.minimum(xs, e, out=e)  # -|x|; NaN: x itself
+        np.exp(e, out=e)
+        np.greater_equal(xs, 0, out=num)
+        np.maximum(e, num, out=num)
+        e += 1.0
+        if num.dtype == np.float64:
+            np.divide(num, e, out=flat_out[start:start + xs.size])
+        else:  # computed in the input's precision, like the formula on the whole array
+            num /= e
+            flat_out[start:start + xs.size] = num
+    return out
+
+
+_EXPIT_CHUNK = 16_384
 
 
 def _subtree_means(
