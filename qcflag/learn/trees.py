@@ -359,7 +359,7 @@ def _forest_block_py(  # pragma: no cover - runs compiled by numba (see _numba_k
     thresholds: NDArray[np.float64], words: NDArray[np.uint64], values: NDArray[np.float64],
     roots: NDArray[np.int64], tree_ens: NDArray[np.int64], baselines: NDArray[np.float64],
     out: NDArray[np.float64],
-) -> int:
+) -> None:
     """Code and walk levels ``start:stop`` of `X` into ``out[start:stop]`` (numba kernel).
 
     Levels are taken 512 at a time (their codes stay in the L1 cache). Coding: a branch-free
