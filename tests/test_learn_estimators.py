@@ -256,6 +256,24 @@ def test_prediction_refuses_infinite_values_in_every_column(cls):
     Xi[-1] = np.nan  # missing values stay allowed
     assert np.isfinite(est.predict_proba(Xi)).all()
 
+
+@pytest.mark.parametrize("cls", [OrdinalLogistic, CumulativeBoostedClassifier])
+def test_infinite_values_in_a_data_frame_give_only_the_error(cls):
+    import warnings
+
+    import pandas as pd
+
+    X, y = _ordinal_data(n=600)
+    frame = pd.DataFrame(X, columns=[f"f{j}" for j in range(X.shape[1])])
+    est = cls(**({"max_iter": 5} if cls is CumulativeBoostedClassifier else {})).fit(frame, y)
+    bad = frame.iloc[:30].copy()
+    bad.iloc[-1, 3] = np.inf
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # e.g. no "X does not have valid feature names"
+        with pytest.raises(ValueError, match="infinity"):
+            est.predict_proba(bad)
+        assert est.predict_proba(frame.iloc[:30]).shape == (30, 4)
+
 def test_ordinal_logistic_predict_matches_mord_rule():
     X, y = _ordinal_data()
     est = OrdinalLogistic(max_samples=None).fit(X, y)

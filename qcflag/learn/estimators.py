@@ -600,12 +600,12 @@ class OrdinalLogistic(_GradeEstimator):
         if n_seen < 2:
             X = self._validate_predict(X)
             return self._pad(np.ones((X.shape[0], 1)))
-        X = self._validate_predict(X, finite=False)  # infinities: found on the way
-        eta = _linear_scores(X, self.fill_, self.mean_, self.scale_, self.coef_,
+        Xv = self._validate_predict(X, finite=False)  # infinities: found on the way
+        eta = _linear_scores(Xv, self.fill_, self.mean_, self.scale_, self.coef_,
                              check_finite=True)
         if eta is None:
-            X = self._validate_predict(X)  # raises scikit-learn's error for infinite values
-            eta = _linear_scores(X, self.fill_, self.mean_, self.scale_, self.coef_)
+            Xv = self._validate_predict(X)  # raises scikit-learn's error for infinite values
+            eta = _linear_scores(Xv, self.fill_, self.mean_, self.scale_, self.coef_)
         cum = _sigmoid(self.theta_[None, :] - eta[:, None])  # P(y <= k)
         n, m = cum.shape
         out = np.empty((n, m + 1))  # differences of 0, P(y <= k)..., 1
@@ -780,11 +780,11 @@ class _CumulativeTrees(_GradeEstimator):
         if not self.ensembles_:
             X = self._validate_predict(X)
             return np.zeros((X.shape[0], 0))
-        X = self._validate_predict(X, finite=False)  # infinities: the kernels count them
+        Xv = self._validate_predict(X, finite=False)  # infinities: the kernels count them
         forest = getattr(self, "_forest", None)
         if forest is None:  # ensembles_ set by hand: build the evaluator without caching it
             forest = self._evaluator(self.ensembles_)
-        raw, has_inf = forest.raw_checked(X)
+        raw, has_inf = forest.raw_checked(Xv)
         if has_inf:
             self._validate_predict(X)  # raises scikit-learn's error for infinite values
         gt = expit(raw)
