@@ -261,7 +261,12 @@ def test_layouts_and_read_only_inputs_give_the_same_bits(fitted, kernels):
     wide = np.repeat(X, 2, axis=0)
     for Xv in (np.asfortranarray(X), wide[::2], ro, np.asarray(X, dtype=np.float32)):
         expect = ref if Xv.dtype == np.float64 else forest.raw(Xv.astype(np.float64))
-        np.testing.assert_array_equal(forest.raw(Xv), expect)
+        for kernel in ("auto", "block"):
+            np.testing.assert_array_equal(forest.raw(Xv, kernel=kernel), expect)
+    for kernel in ("auto", "block"):  # infinities found in either layout
+        for Xv in (X.copy(), np.asfortranarray(X)):
+            Xv[-1, -1] = np.inf
+            assert forest.raw_checked(Xv, kernel=kernel)[1]
     np.testing.assert_array_equal(est.predict_proba(np.asfortranarray(X)), est.predict_proba(X))
 
 def test_numba_and_numpy_give_the_same_probabilities(fitted, monkeypatch):

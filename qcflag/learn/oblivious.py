@@ -331,9 +331,14 @@ def _predict_block_py(  # pragma: no cover - runs compiled by numba (see _kernel
     n_inf = 0
     for s0 in range(start, stop, sub):
         m = min(sub, stop - s0)
-        for i in range(s0, s0 + m):
+        if X.strides[0] >= X.strides[1]:  # levels are rows (C order)
+            for i in range(s0, s0 + m):
+                for j in range(X.shape[1]):
+                    n_inf += abs(X[i, j]) == np.inf
+        else:  # columns are contiguous (F order)
             for j in range(X.shape[1]):
-                n_inf += abs(X[i, j]) == np.inf
+                for i in range(s0, s0 + m):
+                    n_inf += abs(X[i, j]) == np.inf
         for i in range(m):
             for j in range(n_cols):
                 xt[j, i] = X[s0 + i, cols[j]]
@@ -428,9 +433,14 @@ def _predict_codes_py(  # pragma: no cover - runs compiled by numba (see _kernel
     n_inf = 0
     for s0 in range(start, stop, sub):
         m = min(sub, stop - s0)
-        for i in range(s0, s0 + m):
+        if X.strides[0] >= X.strides[1]:  # levels are rows (C order)
+            for i in range(s0, s0 + m):
+                for j in range(X.shape[1]):
+                    n_inf += abs(X[i, j]) == np.inf
+        else:  # columns are contiguous (F order)
             for j in range(X.shape[1]):
-                n_inf += abs(X[i, j]) == np.inf
+                for i in range(s0, s0 + m):
+                    n_inf += abs(X[i, j]) == np.inf
         for i0 in range(0, m, 8):  # eight levels per column: whole cache lines written
             q1 = min(8, m - i0)
             for j in range(n_cols):
