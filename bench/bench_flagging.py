@@ -10,16 +10,17 @@ Figures, all measured in this one run on this machine:
 * cost growth from the small to the large archive (10x the levels): the ratio of the
   per-level times (1.0 = linear): the single run on the large archive against the mean of
   the ``REPEATS`` runs on the small one;
-* speed-up from 1 to 2 worker processes on the small archive, both measured the same way:
-  a dask LocalCluster of 1 (then 2) single-threaded worker processes is started (with
-  ``qcflag.scale.local_cluster``, as ``qcflag flag --workers N`` does) and each
-  worker warmed (``qcflag.scale.warm_worker``: imports, reference fields, rule set); then
-  ``flag_files_parallel(scheduler=...)`` is timed, ``REPEATS`` times on the same cluster,
-  the fastest run counting for each (a run of a few seconds on a shared 2-core machine
-  is easily slowed by other work; every run is printed). Start-up and warm-up are timed
-  separately and reported in their own row (they are a fixed cost per run, not per file).
-  The small archive has an even number of files (at least 8) and the driver submits the
-  largest files first, so two workers get an even share;
+* speed-up from 1 to 2 worker processes on the small archive, both measured the same way
+  in one child process: a dask LocalCluster of 1 and one of 2 single-threaded worker
+  processes are started (with ``qcflag.scale.local_cluster``, as ``qcflag flag --workers
+  N`` does) and their workers warmed (``qcflag.scale.warm_worker``: imports, reference
+  fields, rule set); then ``flag_files_parallel(scheduler=...)`` is timed ``REPEATS``
+  times on each, the two clusters taking turns (so a slow spell of this shared 2-core
+  machine falls on both alike), and the fastest run of each counts (every run is
+  printed). Start-up and warm-up are timed separately and reported in their own row (they
+  are a fixed cost per run, not per file). The small archive has an even number of files
+  (at least 8) and the driver submits the largest files first, so two workers get an even
+  share;
 * the vectorised ``flag_batch`` against the straightforward loop that calls it one
   profile at a time, on the same ~200 profiles (60 with ``quick``).
 
@@ -40,6 +41,7 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from typing import Any
 
 HISTORY = "2000-01-01T00:00:00Z qcflag bench"
 REPEATS = 3
@@ -55,41 +57,49 @@ _CHILD = r"""
 import json, sys, time
 from qcflag.scale import flag_files_parallel, local_cluster, warm_worker
 spec = json.load(open(sys.argv[1]))
-info = {}
-scheduler, client, cluster = None, None, None
-if spec["cluster"]:
-    from distributed import Client
-    t0 = time.perf_counter()
-    cluster = local_cluster(spec["workers"])  # the cluster `qcflag flag --workers N` starts
-    client = Client(cluster)
-    client.wait_for_workers(spec["workers"])
-    info["start_seconds"] = time.perf_counter() - t0
-    t0 = time.perf_counter()
-    client.run(warm_worker)
-    info["warm_seconds"] = time.perf_counter() - t0
-    scheduler = client.scheduler.address
-else:
-    t0 = time.perf_counter()
-    warm_worker()  # the same warm-up the dask workers get, timed apart
-    info["warm_seconds"] = time.perf_counter() - t0
-runs = []
-for _ in range(spec["repeats"]):  # the same files again, over the previous outputs
-    t0, c0 = time.perf_counter(), time.process_time()
-    s = flag_files_parallel(spec["files"], spec["out"], workers=spec["workers"],
-                            scheduler=scheduler, history=spec["history"], progress=False,
-                            overwrite=True)
-    runs.append((time.perf_counter() - t0, time.process_time() - c0))
-# the fastest run: other load on the machine can only slow a run down (timeit's practice)
-info.update(seconds=min(runs)[0], cpu_seconds=min(runs)[1], all_seconds=[r[0] for r in runs],
-            n_levels=s.n_levels)
+setups = []
+for n in spec["workers"]:
+    info, client, cluster, scheduler = {}, None, None, None
+    if spec["cluster"]:
+        from distributed import Client
+        t0 = time.perf_counter()
+        cluster = local_cluster(n)  # the cluster `qcflag flag --workers N` starts
+        client = Client(cluster)
+        client.wait_for_workers(n)
+        info["start_seconds"] = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        client.run(warm_worker)
+        info["warm_seconds"] = time.perf_counter() - t0
+        scheduler = client.scheduler.address
+    else:
+        t0 = time.perf_counter()
+        warm_worker()  # the same warm-up the dask workers get, timed apart
+        info["warm_seconds"] = time.perf_counter() - t0
+    setups.append((n, info, client, cluster, scheduler, []))
+# the runs of the different worker counts alternate, so a slow spell of the machine falls
+# on all of them alike; each flags the same files again, over its previous outputs
+for _ in range(spec["repeats"]):
+    for n, info, client, cluster, scheduler, runs in setups:
+        t0, c0 = time.perf_counter(), time.process_time()
+        s = flag_files_parallel(spec["files"], f"{spec['out']}_w{n}", workers=n,
+                                scheduler=scheduler, history=spec["history"],
+                                progress=False, overwrite=True)
+        runs.append((time.perf_counter() - t0, time.process_time() - c0))
+        info["n_levels"] = s.n_levels
+out = []
+for n, info, client, cluster, scheduler, runs in setups:
+    # the fastest run: other load on the machine can only slow a run down (timeit's practice)
+    info.update(seconds=min(runs)[0], cpu_seconds=min(runs)[1],
+                all_seconds=[r[0] for r in runs])
+    if client is not None:
+        client.close()
+        cluster.close()
+    out.append(info)
 # this process's own peak RSS (VmHWM restarts at exec; rusage maxrss can carry the parent's)
 for line in open("/proc/self/status"):
     if line.startswith("VmHWM:"):
-        info["vmhwm_kib"] = int(line.split()[1])
-if client is not None:
-    client.close()
-    cluster.close()
-print(json.dumps(info))
+        out[0]["vmhwm_kib"] = int(line.split()[1])
+print(json.dumps(out))
 """
 
 
@@ -122,40 +132,40 @@ def make_archive(folder: Path, n_levels: int, *, seed: int = 0) -> list[Path]:
     return files
 
 
-def run_child(files: list[Path], out: Path, workers: int, *,
-              cluster: bool = False, repeats: int = 1) -> dict[str, float]:
+def run_child(files: list[Path], out: Path, workers: int | list[int], *,
+              cluster: bool = False, repeats: int = 1) -> list[dict[str, Any]]:
     """Flag `files` in a fresh interpreter; return its timings and peak RSS.
 
-    With `cluster`, the child starts a LocalCluster of `workers` processes and warms them
-    first (timed apart, as ``start_seconds`` and ``warm_seconds``); ``seconds`` is the
+    With `cluster`, the child starts a LocalCluster for each count in `workers` and warms
+    it (timed apart, as ``start_seconds`` and ``warm_seconds``); ``seconds`` is the
     flagging run alone. Without it, one worker flags in the child's own process. With
-    `repeats`, the child flags the files that many times in a row and ``seconds`` is the
-    fastest run (all of them in ``all_seconds``).
+    `repeats`, the child flags the files that many times per cluster, the clusters taking
+    turns, and ``seconds`` is the fastest run (all of them in ``all_seconds``). One result
+    per worker count, in the order given; ``maxrss_gib`` (the child's peak) is on the first.
     """
+    counts = [workers] if isinstance(workers, int) else list(workers)
     spec = out.parent / f"{out.name}.json"
     spec.write_text(json.dumps({"files": [str(f) for f in files], "out": str(out),
-                                "workers": workers, "history": HISTORY,
+                                "workers": counts, "history": HISTORY,
                                 "cluster": cluster, "repeats": repeats}))
     log_out, log_err = out.parent / f"{out.name}.out", out.parent / f"{out.name}.err"
     with log_out.open("w") as fo, log_err.open("w") as fe:
-        t0 = time.perf_counter()
         proc = subprocess.Popen([sys.executable, "-c", _CHILD, str(spec)], stdout=fo,
                                 stderr=fe)
         # os.wait4 gives this child's own resource usage, including its peak RSS (KiB)
         _, status, usage = os.wait4(proc.pid, 0)
-        wall = time.perf_counter() - t0
     proc.returncode = os.waitstatus_to_exitcode(status)
     stdout, stderr = log_out.read_text(), log_err.read_text()
     maxrss_kib = usage.ru_maxrss  # may include the parent's peak before exec (Linux)
     if proc.returncode != 0:
         raise RuntimeError(f"benchmark child failed:\n{stderr[-3000:]}")
-    info = json.loads(stdout.strip().splitlines()[-1])
-    return {"seconds": float(info["seconds"]), "wall": wall, "n_levels": info["n_levels"],
-            "cpu_seconds": float(info.get("cpu_seconds", math.nan)),
-            "maxrss_gib": info.get("vmhwm_kib", maxrss_kib) / 2**20,
-            "start_seconds": float(info.get("start_seconds", 0.0)),
-            "warm_seconds": float(info.get("warm_seconds", 0.0)),
-            "all_seconds": info.get("all_seconds", [info["seconds"]])}
+    infos = json.loads(stdout.strip().splitlines()[-1])
+    return [{"seconds": float(info["seconds"]), "n_levels": info["n_levels"],
+             "cpu_seconds": float(info.get("cpu_seconds", math.nan)),
+             "maxrss_gib": info.get("vmhwm_kib", maxrss_kib) / 2**20,
+             "start_seconds": float(info.get("start_seconds", 0.0)),
+             "warm_seconds": float(info.get("warm_seconds", 0.0)),
+             "all_seconds": info["all_seconds"]} for info in infos]
 
 
 def loop_ratio(n_profiles: int) -> dict[str, float]:
@@ -197,10 +207,10 @@ def main(quick: bool = False) -> list[dict[str, object]]:
         print(f"archive: {len(files_small)} / {len(files_large)} files", file=sys.stderr)
 
         # the 1x runs take a few seconds each: best of REPEATS (the 10x run is long enough)
-        r_small = run_child(files_small, root / "out_small_w1", 1, repeats=REPEATS)
-        r_c1 = run_child(files_small, root / "out_small_c1", 1, cluster=True, repeats=REPEATS)
-        r_c2 = run_child(files_small, root / "out_small_c2", 2, cluster=True, repeats=REPEATS)
-        r_large = run_child(files_large, root / "out_large_w1", 1)
+        r_small = run_child(files_small, root / "out_small", 1, repeats=REPEATS)[0]
+        r_c1, r_c2 = run_child(files_small, root / "out_small_c", [1, 2], cluster=True,
+                               repeats=REPEATS)
+        r_large = run_child(files_large, root / "out_large", 1)[0]
         lr = loop_ratio(60 if quick else 200)
 
         lps = r_large["n_levels"] / r_large["seconds"]
