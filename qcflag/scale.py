@@ -1,8 +1,10 @@
 """Flag whole archives: many files, big files, one laptop or an existing dask cluster.
 
-The unit of distribution is a file. Each task opens its file, flags it in chunks of whole
-profiles (so the working memory of the checks, features and model grows with the chunk,
-not the file), writes its output atomically and returns only a small summary. The driver
+The unit of distribution is a file (small files are packed several to a dask task, each
+still flagged on its own; see :func:`_pack_units`). A task opens each of its files, flags it
+in chunks of whole profiles (so the working memory of the checks, features and model grows
+with the chunk, not the file), writes its output atomically and returns only a small
+summary per file. The driver
 never holds level data: it submits a bounded number of tasks at a time and gathers their
 summaries, so an archive far larger than memory streams through in constant space.
 
