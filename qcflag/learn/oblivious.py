@@ -63,7 +63,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from qcflag.learn.trees import expit, jit_kernel
+from qcflag.learn.trees import effective_threads, expit, jit_kernel, map_blocks
 
 if TYPE_CHECKING:
     from numpy.typing import NDArray
@@ -904,7 +904,8 @@ class ObliviousForest:
         self.groups = np.concatenate([*starts, [n_trees]]).astype(np.int64)
         self.group_ens = self.tree_ens[self.groups[:-1]].astype(np.int64)
 
-    def raw(self, X: NDArray[np.float64], *, kernel: str = "auto") -> NDArray[np.float64]:
+    def raw(self, X: NDArray[np.float64], *, kernel: str = "auto",
+            n_threads: int | None = None) -> NDArray[np.float64]:
         """Log-odds of every ensemble, shape (n_samples, n_ensembles).
 
         Parameters
@@ -915,11 +916,15 @@ class ObliviousForest:
             Numba kernel: 8-bit codes, float64 values with trees outer, or levels outer;
             "auto" takes "codes" when the forest allows (``coded``), else "block". All
             give the same bits as the numpy evaluator.
+        n_threads : int, optional
+            Threads, each evaluating whole blocks of levels with the "codes" or "block"
+            kernel (default: scikit-learn's OpenMP choice, which follows ``threadpoolctl``
+            limits).
         """
-        return self.raw_checked(X, kernel=kernel)[0]
+        return self.raw_checked(X, kernel=kernel, n_threads=n_threads)[0]
 
     def raw_checked(
-        self, X: NDArray[np.float64], *, kernel: str = "auto"
+        self, X: NDArray[np.float64], *, kernel: str = "auto", n_threads: int | None = None
     ) -> tuple[NDArray[np.float64], bool]:
         """:meth:`raw` and whether any value of `X` (any column) is infinite.
 
@@ -947,16 +952,17 @@ class ObliviousForest:
                     fn(X, start, stop, self.columns, self.feats, self.thrs, self.values,
                        self.tree_ens, self.baselines, out)
             return out, bool(np.isinf(X).any())
-        n_inf = 0
-        for start in range(0, n, BLOCK_LEVELS):
+
+        def block(start: int) -> int:
             stop = min(start + BLOCK_LEVELS, n)
             if kernel == "codes":
-                n_inf += fn(X, start, stop, self.columns, self.table, self.n_thr, self.feats,
-                            self.tcodes, self.values, self.groups, self.group_ens,
-                            self.baselines, out)
-            else:
-                n_inf += fn(X, start, stop, self.columns, self.feats, self.thrs, self.values,
-                            self.tree_ens, self.baselines, out)
+                return int(fn(X, start, stop, self.columns, self.table, self.n_thr,
+                              self.feats, self.tcodes, self.values, self.groups,
+                              self.group_ens, self.baselines, out))
+            return int(fn(X, start, stop, self.columns, self.feats, self.thrs, self.values,
+                          self.tree_ens, self.baselines, out))
+
+        n_inf = sum(map_blocks(block, n, BLOCK_LEVELS, effective_threads(n_threads)))
         return out, n_inf > 0
 
     def _block_numpy(self, X: NDArray[np.float64], start: int, stop: int,
