@@ -160,8 +160,17 @@ def test_local_cluster_workers_keep_default_malloc_trimming():
         env = client.run(lambda: os.environ.get("MALLOC_TRIM_THRESHOLD_"))
         # and the dashboard-only stack sampler is off (the cluster serves no dashboard)
         sampling = client.run(lambda dask_worker: "profile" in dask_worker.periodic_callbacks)
+        # one single-threaded worker per core: model prediction stays on one thread there
+        threads = client.run(_prediction_threads)
     assert list(env.values()) == [None]
     assert list(sampling.values()) == [False]
+    assert list(threads.values()) == [1]
+
+
+def _prediction_threads() -> int:
+    from qcflag.learn.trees import effective_threads
+
+    return effective_threads(None)
 
 
 def test_packing_puts_every_file_in_one_task_largest_first():
