@@ -15,6 +15,7 @@ Usage::
 
     python bench/heldout_seeds.py                  # seeds 0-4, 12 cruises (~15-25 minutes)
     python bench/heldout_seeds.py --seeds 0 1 --quick
+    python bench/heldout_seeds.py --seeds 0 1 2 3 4 5 6 7 8 9 --default-weights --jobs 2
 
 The scenarios are invented (:mod:`qcflag.simulate`); automated flags assist expert QC and do
 not replace it.
@@ -25,6 +26,8 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from concurrent.futures import ProcessPoolExecutor
+from functools import partial
 from pathlib import Path
 from typing import Any
 
@@ -63,36 +66,51 @@ def beats(res: dict[str, dict[str, Any]], name: str, ref: str) -> bool:
                for b in ("nominal", "rules"))
 
 
+def run_seed(seed: int, cruises: int, folds: int, quick: bool, choose_weights: bool
+             ) -> dict[str, dict[str, dict[str, Any]]]:
+    """Simulate one seed, fit every model on its training cruises, score the held-out ones."""
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):
+        train, test = split(cruises, seed)
+        return compare_models(train, test, folds=folds, seed=seed, quick=quick,
+                              max_train_levels=40_000, choose_weights=choose_weights)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--seeds", type=int, nargs="+", default=[0, 1, 2, 3, 4])
     ap.add_argument("--cruises", type=int, default=12)
     ap.add_argument("--folds", type=int, default=3)
     ap.add_argument("--quick", action="store_true", help="50 boosting iterations")
+    ap.add_argument("--default-weights", action="store_true",
+                    help="every model at its default class weighting, as qcflag train fits "
+                         "it (no cross-validated choice)")
+    ap.add_argument("--jobs", type=int, default=1, help="seeds run in parallel processes")
     args = ap.parse_args()
 
-    from threadpoolctl import threadpool_limits
-
     t0 = time.perf_counter()
+    job = partial(run_seed, cruises=args.cruises, folds=args.folds, quick=args.quick,
+                  choose_weights=not args.default_weights)
     runs: list[dict[str, dict[str, dict[str, Any]]]] = []
-    with threadpool_limits(limits=1):
-        for seed in args.seeds:
-            train, test = split(args.cruises, seed)
-            runs.append(compare_models(train, test, folds=args.folds, seed=seed,
-                                       quick=args.quick, max_train_levels=40_000))
+    with ProcessPoolExecutor(max_workers=max(1, args.jobs)) as pool:
+        for seed, res in zip(args.seeds, pool.map(job, args.seeds), strict=True):
+            runs.append(res)
             line = []
-            for var, res in runs[-1].items():
+            for var, per in res.items():
                 for name in (*LEARNED, "nominal", "rules"):
-                    mae, qwk = scores(res, name, "manual")
+                    mae, qwk = scores(per, name, "manual")
                     line.append(f"{var[:4]} {name} {mae:.4f}/{qwk:.3f}")
             print(f"seed {seed} ({time.perf_counter() - t0:.0f} s): " + "; ".join(line),
                   flush=True)
 
     n = len(runs)
+    weights = ("default class weighting of each model" if args.default_weights
+               else "class weighting chosen by grouped CV on the training cruises")
     print(f"\n{args.cruises}-cruise demo-sized scenarios, seeds {args.seeds}; held-out last "
           "third; models as qcflag applies them (forced grades of physically impossible "
-          "values applied); mean +/- sd over seeds")
-    print(f"{'variable':<12} {'model':<12} {'ref':<7} {'MAE':>16} {'QWK':>16} "
+          f"values applied); {weights}; mean +/- sd over seeds")
+    print(f"{'variable':<12} {'model':<18} {'ref':<7} {'MAE':>16} {'QWK':>16} "
           f"{'beats nominal+rules':>20}")
     for var in runs[0]:
         for ref in ("manual", "truth"):
@@ -100,7 +118,7 @@ def main() -> None:
                 s = np.array([scores(r[var], name, ref) for r in runs])
                 wins = (f"{sum(beats(r[var], name, ref) for r in runs)}/{n}"
                         if name in LEARNED else "")
-                print(f"{var:<12} {name:<12} {ref:<7} "
+                print(f"{var:<12} {name:<18} {ref:<7} "
                       f"{s[:, 0].mean():>8.4f} +/- {s[:, 0].std():.4f} "
                       f"{s[:, 1].mean():>8.3f} +/- {s[:, 1].std():.3f} {wins:>20}")
     print(f"\ntotal {time.perf_counter() - t0:.0f} s")

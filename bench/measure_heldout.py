@@ -84,13 +84,15 @@ CLASS_WEIGHTS: tuple[Any, ...] = (None, "sqrt", "balanced")
 
 
 def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
-                   max_train_levels: int) -> dict[str, dict[str, dict[str, Any]]]:
+                   max_train_levels: int, choose_weights: bool = True,
+                   ) -> dict[str, dict[str, dict[str, Any]]]:
     """Issue 5: held-out MAE and QWK of each model against manual flags and truth.
 
     Each learned model picks its class weighting (:data:`CLASS_WEIGHTS`) by the mean
     absolute grade error of grouped cross-validation on the training cruises (against their
     manual flags), is refitted on all training cruises with it and scored once on the
-    held-out cruises.
+    held-out cruises. With ``choose_weights=False`` every model keeps its default weighting,
+    as ``qcflag train`` fits it, and no cross-validation runs.
     """
     from qcflag.combine import forced_grades
     from qcflag.features import build_features
@@ -124,11 +126,11 @@ def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
                     est.set_params(max_iter=50)
                 if name == "boosted-oblivious" and quick:
                     est.set_params(n_trees=100)
-                if "class_weight" in est.get_params():
+                if "class_weight" in est.get_params() and cw != "default":
                     est.set_params(class_weight=cw)
                 return est
 
-            grid = CLASS_WEIGHTS if name != "rules" else (None,)
+            grid = CLASS_WEIGHTS if name != "rules" and choose_weights else ("default",)
             cands = {str(cw): make(cw) for cw in grid}
             chosen = None
             if len(cands) > 1:
@@ -142,7 +144,8 @@ def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
             alone = m.predict(B).astype(np.int64)
             # as qcflag uses every model: physically impossible values force their grade
             forced = np.maximum(alone, forced_te).astype(np.int64)
-            row: dict[str, Any] = {"class_weight": chosen or "-"}
+            row: dict[str, Any] = {"class_weight": chosen or (
+                "-" if name == "rules" else str(est.get_params().get("class_weight", "-")))}
             for ref_name, ref in (("manual", yte), ("truth", truth)):
                 for label, pred in (("", alone), ("forced_", forced)):
                     row[label + ref_name] = _grade_scores(ref, pred)
