@@ -187,3 +187,91 @@ def test_decision_knobs_on_a_trained_model(trained, archive):
         assert (fa[var].grade[good] >= 3).mean() < 0.04
         assert (fa[var].grade[bad] >= 3).mean() >= (default[var].grade[bad] >= 3).mean()
         assert model.card["fusion"][var]["pass_quantiles"]  # stored with the model
+
+
+def test_cv_class_weighting_takes_the_lowest_cross_validated_error(archive):
+    """``class_weight="cv"`` picks, per variable, the weighting whose grouped-CV MAE (on the
+    training cruises only) is lowest, records the scores, and fits the model with it."""
+    from sklearn.base import clone
+
+    from qcflag.features import build_features
+    from qcflag.learn.evaluation import grouped_cross_validate
+    from qcflag.learn.model import _WEIGHT_PARAM
+    from qcflag.rules import run_checks
+
+    hold = sorted(archive.profiles["cruise"].unique())[-2:]
+    model, _ = train_model(archive, estimator="logistic-at", folds=3, seed=0,
+                           holdout_cruises=hold, max_train_levels=5000, class_weight="cv",
+                           fusion=False)
+    scores = model.card["class_weight_cv_mae"]
+    assert set(scores) == {"temperature", "salinity"}
+    # the same cross-validation, run here on the training cruises only
+    checks = run_checks(archive)
+    cruise = archive.per_level("cruise").astype(str)
+    for var in ("temperature", "salinity"):
+        X, _ = build_features(archive, checks, var)
+        y = labels_for(archive, var)
+        rows = (y > 0) & ~np.isin(cruise, hold)
+        est = model.estimators[var]
+        cands = {k: clone(est).set_params(class_weight=v) for k, v in _WEIGHT_PARAM.items()}
+        rep = grouped_cross_validate(cands, X[rows], y[rows], cruise[rows], folds=3, seed=0,
+                                     max_train_levels=5000)
+        mine = {k: float(np.mean([f["mae"] for f in rep.folds["grade"][k]])) for k in cands}
+        assert scores[var] == pytest.approx(mine, rel=1e-12)
+        best = min(mine, key=mine.__getitem__)
+        assert model.card["class_weight"][var] == best
+        assert _fitted_weighting(est, y[rows]) == best
+    assert len({tuple(v.values()) for v in scores.values()}) == 2  # scored per variable
+
+
+def _fitted_weighting(est, y):
+    """Which weighting the final fit used: the subsample's compensating class weights
+    (:func:`majority_subsample`, 5,000 levels, seed 0) are compared with each candidate's."""
+    from qcflag.learn.evaluation import majority_subsample
+    from qcflag.learn.model import _WEIGHT_PARAM
+
+    got = est.get_params()["class_weight"]
+    assert isinstance(got, dict)  # the archive is larger than the 5,000-level subsample
+    match = [k for k, v in _WEIGHT_PARAM.items()
+             if majority_subsample(y, 5000, seed=0, class_weight=v)[1] == got]
+    assert len(match) == 1
+    return match[0]
+
+
+def test_fixed_class_weighting_and_bad_values(archive):
+    from qcflag.exceptions import QCFlagError
+
+    model, _ = train_model(archive, estimator="logistic-at", folds=2, seed=0,
+                           max_train_levels=5000, class_weight="balanced", fusion=False)
+    assert model.card["class_weight"] == {"temperature": "balanced", "salinity": "balanced"}
+    assert "class_weight_cv_mae" not in model.card
+    y = {v: labels_for(archive, v) for v in model.estimators}
+    assert all(_fitted_weighting(e, y[v][y[v] > 0]) == "balanced"
+               for v, e in model.estimators.items())
+    model, _ = train_model(archive, estimator="logistic-at", folds=2, seed=0,
+                           max_train_levels=5000, fusion=False)
+    assert model.card["class_weight"] == {"temperature": "sqrt", "salinity": "sqrt"}
+    with pytest.raises(QCFlagError, match="unknown class weighting 'heavy'"):
+        train_model(archive, estimator="logistic-at", class_weight="heavy")
+    with pytest.raises(QCFlagError, match="class weighting once"):
+        train_model(archive, estimator="logistic-at", class_weight="none",
+                    estimator_params={"class_weight": None})
+
+
+def test_cli_class_weight_option(tmp_path):
+    files = write_scenario(tmp_path / "data", n_cruises=4, seed=5,
+                           config=SimulationConfig(casts_per_cruise=3, floats_per_cruise=0,
+                                                   max_cast_pressure=300), formats=("csv",))
+    csvs = [str(f) for f in files if f.suffix == ".csv"]
+    runner = CliRunner()
+    model = tmp_path / "m.qcm"
+    res = runner.invoke(app, ["train", *csvs, "--model", str(model), "--estimator",
+                              "logistic-at", "--folds", "2", "--class-weight", "cv"])
+    assert res.exit_code == 0, res.output
+    card = load_model(model).card
+    for var in ("temperature", "salinity"):
+        assert f"class weighting, {var}: {card['class_weight'][var]}" in res.output
+    res = runner.invoke(app, ["train", *csvs, "--model", str(tmp_path / "x.qcm"),
+                              "--class-weight", "heavy"])
+    assert res.exit_code == 2 and "--class-weight" in res.output
+    assert not (tmp_path / "x.qcm").exists()

@@ -38,6 +38,11 @@ def train_cmd(
     compare: Annotated[bool, typer.Option(
         "--compare", help="Cross-validate every model, not only the chosen one and the "
                           "baselines.")] = False,
+    class_weight: Annotated[str, typer.Option(
+        help="Weighting of the rare grades: sqrt (square root of the inverse grade "
+             "frequency), balanced (inverse frequency), none, or cv (per variable, the one "
+             "of these with the lowest cross-validated mean absolute grade error; about "
+             "four times the cross-validation time).")] = "sqrt",
     scheme: Annotated[str | None, typer.Option(
         help="Flag scale of the manual flags (default: detected or argo).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite",
@@ -53,6 +58,11 @@ def train_cmd(
     if estimator not in _ESTIMATORS:
         raise typer.BadParameter(f"choose one of {', '.join(_ESTIMATORS)}",
                                  param_hint="--estimator")
+    from qcflag.learn.model import CLASS_WEIGHTINGS
+
+    if class_weight not in CLASS_WEIGHTINGS:
+        raise typer.BadParameter(f"choose one of {', '.join(CLASS_WEIGHTINGS)}",
+                                 param_hint="--class-weight")
     from qcflag.io import check_writable, read_files
     from qcflag.learn import log_run, runs_db_for, save_model, train_model
 
@@ -60,7 +70,7 @@ def train_cmd(
     batch = read_files(inputs, scheme=scheme)
     fitted, report = train_model(
         batch, estimator=estimator, folds=folds, seed=seed, rules=rules,
-        holdout_cruises=holdout, compare=compare,
+        holdout_cruises=holdout, compare=compare, class_weight=class_weight,
     )
     save_model(fitted, model, overwrite=overwrite)
     summary = report.summary()
@@ -71,8 +81,13 @@ def train_cmd(
     }
     log_run(runs_db_for(model), command="train", model_path=model, metrics=metrics,
             data_fingerprint=fitted.card["training_data"]["fingerprint"],
-            n_levels=batch.n_levels, note=f"estimator={estimator} folds={folds}")
+            n_levels=batch.n_levels,
+            note=f"estimator={estimator} folds={folds} class_weight={class_weight}")
     typer.echo(report.to_text())
+    weights = fitted.card.get("class_weight", {})
+    for var, scores in fitted.card.get("class_weight_cv_mae", {}).items():
+        tried = ", ".join(f"{k} {v:.4f}" for k, v in scores.items())
+        typer.echo(f"class weighting, {var}: {weights[var]} (cross-validated MAE: {tried})")
     typer.echo(f"\nmodel written to {model} (runs log: {runs_db_for(model)})")
 
 

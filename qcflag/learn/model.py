@@ -345,6 +345,34 @@ def _cv_estimators(chosen: str, compare: bool, seed: int, rule_col: int) -> dict
     return {n: make_estimator(n, seed=seed, rule_column=rule_col) for n in names}
 
 
+CLASS_WEIGHTINGS: tuple[str, ...] = ("sqrt", "balanced", "none", "cv")
+"""Values of ``train_model(class_weight=...)`` and ``qcflag train --class-weight``."""
+
+_WEIGHT_PARAM: dict[str, str | None] = {"sqrt": "sqrt", "balanced": "balanced", "none": None}
+
+
+def _choose_class_weight(
+    est: Any, class_weight: str, X: NDArray[np.float64], y: NDArray[np.int64],
+    groups: NDArray[Any], **cv: Any,
+) -> tuple[str, dict[str, float]]:
+    """Choose the weighting to fit `est` with; return it and the CV errors behind it.
+
+    A fixed weighting is returned as it is (no scores); ``"cv"`` cross-validates a copy of
+    `est` per weighting of :data:`_WEIGHT_PARAM` on the same folds and takes the lowest
+    mean MAE over the folds, the first in that order on ties.
+    """
+    from sklearn.base import clone
+
+    if class_weight != "cv":
+        return class_weight, {}
+    cands = {name: clone(est).set_params(class_weight=param)
+             for name, param in _WEIGHT_PARAM.items()}
+    rep = grouped_cross_validate(cands, X, y, groups, **cv)
+    scores = {name: float(np.mean([f["mae"] for f in rep.folds["grade"][name]]))
+              for name in cands}
+    return min(scores, key=scores.__getitem__), scores
+
+
 def train_model(
     batch: ProfileBatch,
     *,
@@ -358,6 +386,7 @@ def train_model(
     estimator_params: dict[str, Any] | None = None,
     max_train_levels: int | None = 40_000,
     quantise_features: bool | None = None,
+    class_weight: str | None = None,
 ) -> tuple[QCModel, CVReport]:
     """Learn graded flags from the manual flags of an archive.
 
@@ -392,6 +421,13 @@ def train_model(
         Snap the features to a fixed grid before fitting (:func:`quantise`; the scales go
         into the model card and prediction applies the same map). Default: on for the
         boosted model, whose training it speeds up several-fold, off otherwise.
+    class_weight : {"sqrt", "balanced", "none", "cv"}, optional
+        Weighting of the rarer grades in the chosen estimator: ``"sqrt"`` (the square root
+        of the inverse grade frequency), ``"balanced"`` (the inverse frequency), ``"none"``,
+        or ``"cv"``: per variable, the one of those three with the lowest mean absolute
+        grade error in grouped cross-validation on the training cruises (ties go to the
+        order sqrt, balanced, none; three extra cross-validations). The choice and the
+        scores behind it go into the model card. Default: the estimator's own (sqrt).
 
     Returns
     -------
@@ -417,6 +453,12 @@ def train_model(
             "the input carries no manual temperature or salinity flags to learn from; give "
             "files with temperature_flag/salinity_flag (or Argo <VAR>_QC) columns"
         )
+    if class_weight is not None and class_weight not in CLASS_WEIGHTINGS:
+        raise QCFlagError(
+            f"unknown class weighting {class_weight!r}; choose {', '.join(CLASS_WEIGHTINGS)}")
+    if class_weight is not None and estimator_params and "class_weight" in estimator_params:
+        raise QCFlagError("give the class weighting once: as class_weight or in "
+                          "estimator_params, not both")
     rs = load_rules(rules)
     checks = run_checks(batch, rules=rs)
     cruise = batch.per_level("cruise").astype(str)
@@ -427,6 +469,8 @@ def train_model(
     fusions: dict[str, Any] = {}
     label_counts: dict[str, dict[str, int]] = {}
     quant: dict[str, list[float]] = {}
+    weighting: dict[str, str] = {}
+    weighting_cv: dict[str, dict[str, float]] = {}
     for var in JUDGED_VARIABLES:
         if var not in batch.flags:
             continue
@@ -445,6 +489,16 @@ def train_model(
         if estimator_params:
             cv_models[estimator].set_params(**estimator_params)
         idx = np.flatnonzero(keep)
+        if class_weight is not None:
+            fit_idx = idx if hold is None else idx[~np.isin(cruise[idx], hold)]
+            chosen, scores = _choose_class_weight(  # held-out cruises play no part
+                cv_models[estimator], class_weight, X_all[fit_idx], y_all[fit_idx],
+                cruise[fit_idx], folds=folds, seed=seed, max_train_levels=max_train_levels)
+            cv_models[estimator].set_params(class_weight=_WEIGHT_PARAM[chosen])
+            if scores:
+                weighting_cv[var] = scores
+        param = cv_models[estimator].get_params().get("class_weight", "-")
+        weighting[var] = next((k for k, v in _WEIGHT_PARAM.items() if v == param), "custom")
         rep = grouped_cross_validate(
             cv_models, X_all[idx], y_all[idx], cruise[idx], folds=folds, seed=seed,
             holdout=hold, variable=var, oof_models=[estimator],
@@ -495,6 +549,10 @@ def train_model(
         "packages": _versions(),
         "caution": CAUTION,
     }
+    if weighting:
+        card["class_weight"] = weighting
+    if weighting_cv:
+        card["class_weight_cv_mae"] = weighting_cv
     if quant:
         card["feature_quantisation"] = quant
     if fusions:
