@@ -79,26 +79,29 @@ def _grade_scores(ref: np.ndarray, pred: np.ndarray) -> dict[str, float]:
             "qwk": float(quadratic_weighted_kappa(confusion(ref[ok], pred[ok])))}
 
 
-CLASS_WEIGHTS: tuple[Any, ...] = (None, "sqrt", "balanced")
-"""Settings each learned model chooses from by grouped CV on the training cruises."""
-
-
 def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
                    max_train_levels: int, choose_weights: bool = True,
                    ) -> dict[str, dict[str, dict[str, Any]]]:
     """Issue 5: held-out MAE and QWK of each model against manual flags and truth.
 
-    Each learned model picks its class weighting (:data:`CLASS_WEIGHTS`) by the mean
+    Each learned model picks its class weighting (sqrt, balanced or none) by the mean
     absolute grade error of grouped cross-validation on the training cruises (against their
-    manual flags), is refitted on all training cruises with it and scored once on the
-    held-out cruises. With ``choose_weights=False`` every model keeps its default weighting,
-    as ``qcflag train`` fits it, and no cross-validation runs.
+    manual flags), as ``qcflag train --class-weight cv`` does, is refitted on all training
+    cruises with it and scored once on the held-out cruises. With ``choose_weights=False``
+    every model keeps its default weighting, as ``qcflag train`` fits it, and no
+    cross-validation runs.
     """
     from qcflag.combine import forced_grades
     from qcflag.features import build_features
     from qcflag.learn.estimators import make_estimator
-    from qcflag.learn.evaluation import fit_subsampled, grouped_cross_validate
-    from qcflag.learn.model import labels_for, quantisation_scales, quantise
+    from qcflag.learn.evaluation import fit_subsampled
+    from qcflag.learn.model import (
+        _WEIGHT_PARAM,
+        _choose_class_weight,
+        labels_for,
+        quantisation_scales,
+        quantise,
+    )
     from qcflag.rules import run_checks
 
     ch_tr, ch_te = run_checks(train), run_checks(test)
@@ -118,28 +121,17 @@ def compare_models(train: Any, test: Any, *, folds: int, seed: int, quick: bool,
             q = name == "boosted"
             A = quantise(Xtr, scales) if q else Xtr
             B = quantise(Xte, scales) if q else Xte
-
-            def make(cw: Any, name: str = name, rule_col: int = names.index("rule_grade")
-                     ) -> Any:
-                est = make_estimator(name, seed=seed, rule_column=rule_col)
-                if name == "boosted" and quick:
-                    est.set_params(max_iter=50)
-                if name == "boosted-oblivious" and quick:
-                    est.set_params(n_trees=100)
-                if "class_weight" in est.get_params() and cw != "default":
-                    est.set_params(class_weight=cw)
-                return est
-
-            grid = CLASS_WEIGHTS if name != "rules" and choose_weights else ("default",)
-            cands = {str(cw): make(cw) for cw in grid}
+            est = make_estimator(name, seed=seed, rule_column=names.index("rule_grade"))
+            if name == "boosted" and quick:
+                est.set_params(max_iter=50)
+            if name == "boosted-oblivious" and quick:
+                est.set_params(n_trees=100)
             chosen = None
-            if len(cands) > 1:
-                rep = grouped_cross_validate(cands, A[k], ytr[k], cruise[k], folds=folds,
-                                             seed=seed, max_train_levels=max_train_levels)
-                cv_mae = {c: float(np.mean([f["mae"] for f in rep.folds["grade"][c]]))
-                          for c in cands}
-                chosen = min(cv_mae, key=cv_mae.__getitem__)
-            est = cands[chosen] if chosen is not None else next(iter(cands.values()))
+            if name != "rules" and choose_weights:  # as qcflag train --class-weight cv
+                chosen, _ = _choose_class_weight(
+                    est, "cv", A[k], ytr[k], cruise[k], folds=folds, seed=seed,
+                    max_train_levels=max_train_levels)
+                est.set_params(class_weight=_WEIGHT_PARAM[chosen])
             m = fit_subsampled(est, A[k], ytr[k], cruise[k], max_train_levels, seed)
             alone = m.predict(B).astype(np.int64)
             # as qcflag uses every model: physically impossible values force their grade

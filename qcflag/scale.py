@@ -597,6 +597,7 @@ whatever its size, and on a small machine the driver and scheduler share the cor
 workers; a 2 MB file flags in about 80 ms, so one task per small file spends several per
 cent of the run on bookkeeping. A file larger than this is a task of its own."""
 
+
 def _pack_units(units: list[list[int]], sizes: list[int], n_workers: int, *,
                 task_bytes: int = TASK_BYTES) -> list[list[int]]:
     """Group units of work into dask tasks, largest first, smaller towards the end.

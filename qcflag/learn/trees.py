@@ -684,7 +684,6 @@ class TreeForest:
                        self.words, self.values, self.roots, self.tree_ens,
                        np.asarray(self.baselines), out)
                 return int(count(X[start:start + BLOCK_LEVELS]))
-            # one thread per block: coarse-grained, so a busy core never stalls the others
             stop = min(start + BLOCK_LEVELS, n)
             vals = (np.zeros((stop - start, 1)) if self.dummy
                     else np.ascontiguousarray(X[start:stop, self.columns]))
